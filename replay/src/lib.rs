@@ -1,0 +1,2 @@
+//! Host tools around `nav-core`: the log format, the simulator, the runner,
+//! trace diffs, campaigns, plots and rig-log import.

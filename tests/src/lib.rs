@@ -1,0 +1,63 @@
+//! Shared workloads for the cross-crate tests.
+//!
+//! [`core_workload_digest`] runs a fixed, deterministic computation through
+//! `nav-core` and returns its FNV-1a digest. The determinism test runs it in
+//! this process and, through the `determinism-witness` binary, in a separate
+//! one, and compares both with the constants committed in
+//! `tests/determinism.rs`. Every new core entry point should be fed here.
+
+use nav_core::digest::Fnv64;
+use nav_core::gas::IdealGas;
+
+/// Transcendental functions straight from `libm`, over a fixed grid that
+/// includes awkward arguments (large, tiny, near multiples of pi).
+pub fn libm_digest() -> u64 {
+    let mut d = Fnv64::new();
+    for i in 0..2000u32 {
+        let x = f64::from(i) * 0.0137 - 7.3;
+        d.f64(libm::sin(x * 113.0));
+        d.f64(libm::cos(x * 1e3));
+        d.f64(libm::tan(x));
+        d.f64(libm::exp(x));
+        d.f64(libm::log(libm::fabs(x) + 1e-300));
+        d.f64(libm::pow(libm::fabs(x), 1.0 / 3.5));
+        d.f64(libm::atan2(x, 1.0 - x));
+        d.f64(libm::asin(libm::sin(x)));
+        d.f64(libm::sqrt(libm::fabs(x)));
+        d.f64(libm::cbrt(x));
+        d.f64(libm::hypot(x, 0.3));
+    }
+    d.finish()
+}
+
+/// The core's own numerics: gas relations and their root-finding inverses.
+pub fn core_workload_digest() -> u64 {
+    let mut d = Fnv64::new();
+    let gases = [
+        IdealGas::DRY_AIR,
+        IdealGas::WATER_VAPOUR,
+        IdealGas::new(1.33, 461.5).unwrap_or(IdealGas::DRY_AIR),
+    ];
+    for g in gases {
+        for i in 1..400u32 {
+            let m = f64::from(i) * 0.0125;
+            let mut put = |r: Result<f64, nav_core::gas::GasError>| match r {
+                Ok(v) => d.f64(v),
+                Err(_) => d.u64(u64::MAX),
+            };
+            put(g.p0_over_p(m));
+            put(g.rho0_over_rho(m));
+            put(g.area_ratio(m));
+            put(g.rayleigh_pitot_p02_over_p1(m));
+            put(g.normal_shock_p02_over_p01(m));
+            if let Ok(a) = g.area_ratio(m) {
+                put(g.mach_from_area_ratio_subsonic(a));
+                put(g.mach_from_area_ratio_supersonic(a));
+            }
+            if let Ok(p) = g.p0_over_p(m) {
+                put(g.mach_from_pitot_over_static(p));
+            }
+        }
+    }
+    d.finish()
+}
