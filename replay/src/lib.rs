@@ -1,2 +1,4 @@
 //! Host tools around `nav-core`: the log format, the simulator, the runner,
 //! trace diffs, campaigns, plots and rig-log import.
+
+pub mod record;
