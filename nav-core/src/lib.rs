@@ -33,7 +33,11 @@
 #[cfg(feature = "std")]
 extern crate std;
 
+pub mod decide;
 pub mod digest;
 pub mod frame;
 pub mod gas;
+pub mod health;
+pub mod map;
+pub mod navigator;
 pub mod num;

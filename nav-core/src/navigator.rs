@@ -1,0 +1,993 @@
+//! The one embedding entry point: a validated configuration in, one
+//! observation per step in, one [`Command`] out.
+//!
+//! `Navigator<P, C, S, W, JN>`: `P` probe ports (<= 32), `C` contact
+//! sensors (<= 64), `S` stations, `W` wall points, `JN` junctions. Built
+//! once by [`Navigator::new`]; after that no allocation, no panics, and
+//! bounded work per step (the dominant terms are one `O(W)` nearest-wall
+//! query and one `O(S)` back-out cursor walk at most).
+//!
+//! ## Frames out of order
+//! Frames are processed at once, never delayed: a reorder buffer would add
+//! its whole window as latency to every command. A frame older than the
+//! last processed one but within `reorder_window_s` is *late*: its wall
+//! points are merged into the wall index (order does not matter there) and
+//! the rest is ignored, because the flow filter, health counters and the
+//! decision memory are time-ordered. Older frames are dropped as stale. In
+//! both cases the previous command is repeated with the frame's
+//! disposition in its record. A frame with a non-finite time is dropped.
+//! Channels with non-finite or out-of-range values are rejected one by
+//! one (`FrameDisposition::PartlyRejected`), the rest of the frame is used.
+
+use crate::decide::{
+    DecideConfig, DecideState, Decision, DecisionRecord, FlowObservation, FrameDisposition,
+    HealthFlags, HealthView, Perception, Phase, ReasonCode, SpeedLimit, WallObservation, decide,
+};
+use crate::digest::Fnv64;
+use crate::frame::HeadPose;
+use crate::health::{HealthConfig, HealthReport, HealthState, OperatingMode};
+use crate::map::{
+    FlowEstimate, Junction, LocalMap, Section, Station, WallIndex, disc_area_m2, dist_sq, dot,
+    finite3, head_forward_map, mass_flux_proxy, scale, unit,
+};
+
+/// One step's input: what the probe and tactile layers made of one sensor
+/// frame, already in the map frame.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Observation {
+    /// Sample time, s, on the robot's monotonic clock.
+    pub time_s: f64,
+    /// Head pose (from `SensorFrame::pose`); the last one is reused when
+    /// absent.
+    pub pose: Option<HeadPose>,
+    /// Flow solution, if the probe reported.
+    pub flow: Option<FlowObservation>,
+    /// Wall geometry, if the tactile layer reported.
+    pub wall: Option<WallObservation>,
+}
+
+/// Health flags, mode and decision for one step.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Command {
+    /// Frame time, s.
+    pub time_s: f64,
+    /// Direction of motion of the head, unit, map frame.
+    pub heading_map: [f64; 3],
+    /// Speed, m/s (>= 0).
+    pub speed_m_per_s: f64,
+    /// Move tail first (retracing stations).
+    pub reverse: bool,
+    /// Effective operating mode.
+    pub mode: OperatingMode,
+    /// Why.
+    pub record: DecisionRecord,
+    /// Sensor and channel health.
+    pub health: HealthFlags,
+}
+
+impl Command {
+    /// Feed every field that matters for determinism into `d`.
+    pub fn digest_into(&self, d: &mut Fnv64) {
+        d.f64(self.time_s);
+        d.f64s(&self.heading_map);
+        d.f64(self.speed_m_per_s);
+        d.u64(u64::from(self.reverse));
+        d.u64(self.mode as u64);
+        let r = &self.record;
+        d.u64(r.reason as u64);
+        d.u64(r.frame as u64);
+        d.u64(r.speed_limit as u64);
+        d.u64(phase_code(&r.phase));
+        for v in [
+            r.standoff_m,
+            r.section_radius_m,
+            r.centre_offset_m,
+            r.nearest_wall_m,
+            r.throat_diameter_m,
+            r.throat_distance_m,
+        ] {
+            d.f64(v.unwrap_or(-1.0));
+        }
+        d.f64s(&r.upstream_map.unwrap_or([0.0; 3]));
+        d.f64(r.flow_dir_sigma_rad);
+        d.f64(r.dynamic_pressure_pa);
+        d.f64(r.flow_weak_for_s);
+        if let Some(b) = &r.branch {
+            d.u64(u64::from(b.junction));
+            d.u64(b.chosen.map_or(99, u64::from));
+            d.u64(b.runner_up.map_or(99, u64::from));
+            d.u64(u64::from(b.held_by_hysteresis));
+            d.f64(b.continuity_residual);
+            d.f64s(&b.flux_kg_per_s);
+            d.f64s(&b.width_m);
+        }
+        d.u64(u64::from(self.health.failed_ports));
+        d.u64(self.health.failed_contacts);
+        d.u64(self.health.flow as u64);
+        d.u64(self.health.tactile as u64);
+    }
+}
+
+/// A number for the phase (kind and ids), for digests and traces.
+#[must_use]
+pub fn phase_code(p: &Phase) -> u64 {
+    match *p {
+        Phase::Follow => 1,
+        Phase::Sample {
+            junction, branch, ..
+        } => 2 | (u64::from(junction) << 8) | (u64::from(branch) << 24),
+        Phase::Enter { junction, branch } => {
+            3 | (u64::from(junction) << 8) | (u64::from(branch) << 24)
+        }
+        Phase::BackOut {
+            junction,
+            cursor_seq,
+            ..
+        } => 4 | (u64::from(junction) << 8) | (u64::from(cursor_seq) << 24),
+        Phase::GaveUp => 5,
+    }
+}
+
+/// Everything the navigator needs, before validation.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct NavConfig {
+    /// Decision thresholds (robot radius, margins, speeds, hysteresis...).
+    pub decide: DecideConfig,
+    /// Health thresholds.
+    pub health: HealthConfig,
+    /// Flow direction process noise, rad^2 per second.
+    pub flow_dir_process_noise_rad2_per_s: f64,
+    /// Dynamic pressure process noise, Pa^2 per second.
+    pub dynamic_pressure_process_noise_pa2_per_s: f64,
+    /// A direction observation at an angle beyond this from the fused one
+    /// is an outlier, rad.
+    pub flow_outlier_rad: f64,
+    /// Consecutive outliers that reset the filter to the observation.
+    pub flow_outlier_reset: u8,
+    /// Distance between stations, m.
+    pub station_spacing_m: f64,
+    /// Late frames within this are merged (wall points only), s.
+    pub reorder_window_s: f64,
+    /// A pose older than this stops the robot, s.
+    pub pose_timeout_s: f64,
+}
+
+/// Which configuration field is wrong.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ConfigField {
+    /// `decide.robot_radius_m`.
+    RobotRadius,
+    /// `decide.standoff_margin_m`.
+    StandoffMargin,
+    /// `decide.width_margin_m`.
+    WidthMargin,
+    /// `decide.cruise_speed_m_per_s` / creep / junction speed ordering.
+    Speeds,
+    /// `decide.slow_band_m`.
+    SlowBand,
+    /// `decide.throat_lookahead_m`.
+    ThroatLookahead,
+    /// `decide.centring_gain`.
+    CentringGain,
+    /// `decide.min_dynamic_pressure_pa`.
+    MinDynamicPressure,
+    /// `decide.lost_flow_s`.
+    LostFlowTime,
+    /// `decide.min_branch_flux_kg_per_s`.
+    MinBranchFlux,
+    /// `decide.branch_hysteresis_frac`.
+    Hysteresis,
+    /// `decide.min_branch_samples`.
+    MinBranchSamples,
+    /// `decide.sample_timeout_s`.
+    SampleTimeout,
+    /// `decide.sample_align_rad`.
+    SampleAlign,
+    /// `decide.junction_radius_m`.
+    JunctionRadius,
+    /// `decide.divergence_rad`.
+    Divergence,
+    /// `decide.continuity_tolerance`.
+    ContinuityTolerance,
+    /// `decide.arrive_m`.
+    Arrive,
+    /// `decide.came_from_cos`.
+    CameFrom,
+    /// `health.*` counts.
+    HealthCounts,
+    /// `health.*` times.
+    HealthTimes,
+    /// Filter noise settings.
+    FilterNoise,
+    /// `station_spacing_m`.
+    StationSpacing,
+    /// `reorder_window_s` / `pose_timeout_s`.
+    FrameTiming,
+    /// A capacity const generic (`P > 32`, `C > 64`, or `S`, `W`, `JN` zero).
+    Capacity,
+}
+
+/// A configuration the navigator refused.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ConfigError {
+    /// Which field.
+    pub field: ConfigField,
+    /// The offending value (or the first of them).
+    pub value: f64,
+}
+
+/// A configuration that passed [`NavConfig::validate`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ValidConfig(NavConfig);
+
+impl ValidConfig {
+    /// The configuration.
+    #[must_use]
+    pub const fn get(&self) -> &NavConfig {
+        &self.0
+    }
+}
+
+fn pos(field: ConfigField, v: f64) -> Result<(), ConfigError> {
+    if v.is_finite() && v > 0.0 {
+        Ok(())
+    } else {
+        Err(ConfigError { field, value: v })
+    }
+}
+fn nonneg(field: ConfigField, v: f64) -> Result<(), ConfigError> {
+    if v.is_finite() && v >= 0.0 {
+        Ok(())
+    } else {
+        Err(ConfigError { field, value: v })
+    }
+}
+fn check(field: ConfigField, v: f64, ok: bool) -> Result<(), ConfigError> {
+    if ok && v.is_finite() {
+        Ok(())
+    } else {
+        Err(ConfigError { field, value: v })
+    }
+}
+
+impl NavConfig {
+    /// A reasonable configuration for a robot of radius `robot_radius_m`
+    /// (defaults chosen for the demo scenarios; common practice, not from a
+    /// published source).
+    #[must_use]
+    pub fn for_robot(robot_radius_m: f64) -> Self {
+        let r = robot_radius_m;
+        Self {
+            decide: DecideConfig {
+                robot_radius_m: r,
+                standoff_margin_m: 0.5 * r,
+                width_margin_m: 0.5 * r,
+                cruise_speed_m_per_s: 0.3,
+                creep_speed_m_per_s: 0.05,
+                junction_speed_m_per_s: 0.1,
+                slow_band_m: 2.0 * r,
+                throat_lookahead_m: 20.0 * r,
+                centring_gain: 1.0,
+                min_dynamic_pressure_pa: 0.5,
+                lost_flow_s: 3.0,
+                min_branch_flux_kg_per_s: 1e-4,
+                branch_hysteresis_frac: 0.15,
+                min_branch_samples: 5,
+                sample_timeout_s: 2.0,
+                sample_align_rad: 0.2,
+                junction_radius_m: 12.0 * r,
+                divergence_rad: 0.5,
+                continuity_tolerance: 0.5,
+                arrive_m: 2.0 * r,
+                came_from_cos: -0.5,
+            },
+            health: HealthConfig {
+                suspect_to_failed_frames: 10,
+                recover_frames: 10,
+                min_ports_usable: 4,
+                min_contacts_usable: 3,
+                flow_timeout_s: 0.5,
+                tactile_timeout_s: 1.0,
+                mode_recover_s: 1.0,
+            },
+            flow_dir_process_noise_rad2_per_s: 0.05,
+            dynamic_pressure_process_noise_pa2_per_s: 1.0,
+            flow_outlier_rad: 1.2,
+            flow_outlier_reset: 5,
+            station_spacing_m: 2.0 * r,
+            reorder_window_s: 0.2,
+            pose_timeout_s: 0.5,
+        }
+    }
+
+    /// Check every field.
+    ///
+    /// # Errors
+    /// [`ConfigError`] naming the first bad field and its value.
+    pub fn validate(&self) -> Result<ValidConfig, ConfigError> {
+        use ConfigField as F;
+        let d = &self.decide;
+        pos(F::RobotRadius, d.robot_radius_m)?;
+        nonneg(F::StandoffMargin, d.standoff_margin_m)?;
+        nonneg(F::WidthMargin, d.width_margin_m)?;
+        pos(F::Speeds, d.creep_speed_m_per_s)?;
+        check(
+            F::Speeds,
+            d.cruise_speed_m_per_s,
+            d.cruise_speed_m_per_s >= d.junction_speed_m_per_s
+                && d.junction_speed_m_per_s >= d.creep_speed_m_per_s,
+        )?;
+        pos(F::SlowBand, d.slow_band_m)?;
+        pos(F::ThroatLookahead, d.throat_lookahead_m)?;
+        nonneg(F::CentringGain, d.centring_gain)?;
+        nonneg(F::MinDynamicPressure, d.min_dynamic_pressure_pa)?;
+        pos(F::LostFlowTime, d.lost_flow_s)?;
+        nonneg(F::MinBranchFlux, d.min_branch_flux_kg_per_s)?;
+        check(
+            F::Hysteresis,
+            d.branch_hysteresis_frac,
+            d.branch_hysteresis_frac >= 0.0 && d.branch_hysteresis_frac <= 10.0,
+        )?;
+        check(
+            F::MinBranchSamples,
+            f64::from(d.min_branch_samples),
+            d.min_branch_samples >= 1 && d.min_branch_samples <= 10_000,
+        )?;
+        pos(F::SampleTimeout, d.sample_timeout_s)?;
+        check(
+            F::SampleAlign,
+            d.sample_align_rad,
+            d.sample_align_rad > 0.0 && d.sample_align_rad < core::f64::consts::FRAC_PI_2,
+        )?;
+        check(
+            F::JunctionRadius,
+            d.junction_radius_m,
+            d.junction_radius_m > d.arrive_m,
+        )?;
+        check(
+            F::Divergence,
+            d.divergence_rad,
+            d.divergence_rad > 0.0 && d.divergence_rad < core::f64::consts::PI,
+        )?;
+        nonneg(F::ContinuityTolerance, d.continuity_tolerance)?;
+        pos(F::Arrive, d.arrive_m)?;
+        check(
+            F::CameFrom,
+            d.came_from_cos,
+            d.came_from_cos >= -1.0 && d.came_from_cos <= 1.0,
+        )?;
+        let h = &self.health;
+        check(
+            F::HealthCounts,
+            f64::from(h.suspect_to_failed_frames),
+            h.suspect_to_failed_frames >= 1 && h.recover_frames >= 1,
+        )?;
+        pos(F::HealthTimes, h.flow_timeout_s)?;
+        pos(F::HealthTimes, h.tactile_timeout_s)?;
+        nonneg(F::HealthTimes, h.mode_recover_s)?;
+        nonneg(F::FilterNoise, self.flow_dir_process_noise_rad2_per_s)?;
+        nonneg(
+            F::FilterNoise,
+            self.dynamic_pressure_process_noise_pa2_per_s,
+        )?;
+        check(
+            F::FilterNoise,
+            self.flow_outlier_rad,
+            self.flow_outlier_rad > 0.0 && self.flow_outlier_rad <= core::f64::consts::PI,
+        )?;
+        pos(F::StationSpacing, self.station_spacing_m)?;
+        nonneg(F::FrameTiming, self.reorder_window_s)?;
+        pos(F::FrameTiming, self.pose_timeout_s)?;
+        Ok(ValidConfig(*self))
+    }
+}
+
+/// The streamline filter: fused velocity direction (map frame) with its
+/// covariance, and fused dynamic pressure with its variance.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FlowFilter {
+    /// Current estimate.
+    pub est: FlowEstimate,
+    /// Time of the last update, s.
+    pub last_update_s: f64,
+    /// Since when the fused dynamic pressure has been below the lost-flow
+    /// threshold.
+    pub weak_since_s: Option<f64>,
+    /// Consecutive direction outliers.
+    pub outliers: u8,
+}
+
+/// Variance floor on the diagonal, rad^2 (keeps the innovation covariance
+/// invertible when an observation claims zero uncertainty).
+const DIR_VAR_FLOOR: f64 = 1e-8;
+/// Variance cap on the diagonal, rad^2 (an uninformative direction).
+const DIR_VAR_CAP: f64 = 1.0;
+
+impl FlowFilter {
+    /// Empty filter.
+    pub const NEW: Self = Self {
+        est: FlowEstimate::NONE,
+        last_update_s: f64::NEG_INFINITY,
+        weak_since_s: None,
+        outliers: 0,
+    };
+
+    fn update(&mut self, o: &FlowObservation, dir: [f64; 3], t: f64, cfg: &NavConfig) {
+        use nalgebra::{Matrix3, Vector3};
+        let dt = if self.last_update_s.is_finite() {
+            let d = t - self.last_update_s;
+            if d > 0.0 { d } else { 0.0 }
+        } else {
+            0.0
+        };
+        let m3 = |c: &[[f64; 3]; 3]| {
+            Matrix3::from_fn(|i, j| c.get(i).and_then(|r| r.get(j)).copied().unwrap_or(0.0))
+        };
+        let mut r = m3(&o.dir_cov_map);
+        for i in 0..3 {
+            if let Some(v) = r.get_mut((i, i))
+                && *v < DIR_VAR_FLOOR
+            {
+                *v = DIR_VAR_FLOOR;
+            }
+        }
+        let z = Vector3::new(dir[0], dir[1], dir[2]);
+        let reset = |f: &mut Self| {
+            f.est.velocity_dir_map = Some(dir);
+            f.est.dir_cov = to_arr(&r);
+            f.outliers = 0;
+        };
+        match self.est.velocity_dir_map {
+            None => reset(self),
+            Some(x0) => {
+                let x = Vector3::new(x0[0], x0[1], x0[2]);
+                let mut p = m3(&self.est.dir_cov);
+                let grow = cfg.flow_dir_process_noise_rad2_per_s * dt;
+                for i in 0..3 {
+                    if let Some(v) = p.get_mut((i, i)) {
+                        *v += grow;
+                        if *v > DIR_VAR_CAP {
+                            *v = DIR_VAR_CAP;
+                        }
+                    }
+                }
+                if x.dot(&z) < libm::cos(cfg.flow_outlier_rad) {
+                    self.outliers = self.outliers.saturating_add(1);
+                    self.est.dir_cov = to_arr(&p);
+                    if self.outliers >= cfg.flow_outlier_reset {
+                        reset(self);
+                    }
+                } else if let Some(s_inv) = (p + r).try_inverse() {
+                    let k = p * s_inv;
+                    let xn = x + k * (z - x);
+                    let pn = (Matrix3::identity() - k) * p;
+                    let pn = (pn + pn.transpose()) * 0.5;
+                    match unit([xn.x, xn.y, xn.z]) {
+                        Some(u) => {
+                            self.est.velocity_dir_map = Some(u);
+                            self.est.dir_cov = to_arr(&pn);
+                            self.outliers = 0;
+                        }
+                        None => reset(self),
+                    }
+                } else {
+                    reset(self);
+                }
+            }
+        }
+        // Dynamic pressure: scalar Kalman filter.
+        let meas_var = {
+            let s = o.dynamic_pressure_sigma_pa;
+            let v = s * s;
+            if v > 1e-12 { v } else { 1e-12 }
+        };
+        if self.last_update_s.is_finite() {
+            let pv = self.est.dynamic_pressure_var_pa2
+                + cfg.dynamic_pressure_process_noise_pa2_per_s * dt;
+            let k = pv / (pv + meas_var);
+            self.est.dynamic_pressure_pa +=
+                k * (o.dynamic_pressure_pa - self.est.dynamic_pressure_pa);
+            self.est.dynamic_pressure_var_pa2 = (1.0 - k) * pv;
+        } else {
+            self.est.dynamic_pressure_pa = o.dynamic_pressure_pa;
+            self.est.dynamic_pressure_var_pa2 = meas_var;
+        }
+        self.est.density_kg_per_m3 = o.density_kg_per_m3;
+        self.last_update_s = t;
+        if self.est.dynamic_pressure_pa < cfg.decide.min_dynamic_pressure_pa {
+            if self.weak_since_s.is_none() {
+                self.weak_since_s = Some(t);
+            }
+        } else {
+            self.weak_since_s = None;
+        }
+    }
+}
+
+fn to_arr(m: &nalgebra::Matrix3<f64>) -> [[f64; 3]; 3] {
+    crate::decide::mat3_to_arr(m)
+}
+
+fn pose_ok(p: &HeadPose) -> bool {
+    let q = p.orientation_wxyz;
+    let n2 = q[0] * q[0] + q[1] * q[1] + q[2] * q[2] + q[3] * q[3];
+    finite3(p.position_m) && q.iter().all(|v| v.is_finite()) && n2 > 1e-12 && n2.is_finite()
+}
+
+fn flow_dir_ok(o: &FlowObservation) -> Option<[f64; 3]> {
+    let dir = o.velocity_dir_map?;
+    let cov_ok = o
+        .dir_cov_map
+        .iter()
+        .all(|r| r.iter().all(|v| v.is_finite()))
+        && o.dir_cov_map
+            .iter()
+            .enumerate()
+            .all(|(i, r)| r.get(i).is_some_and(|v| *v >= 0.0));
+    let scalars_ok = o.dynamic_pressure_pa.is_finite()
+        && o.dynamic_pressure_pa >= 0.0
+        && o.dynamic_pressure_sigma_pa.is_finite()
+        && o.dynamic_pressure_sigma_pa >= 0.0
+        && o.density_kg_per_m3.is_finite()
+        && o.density_kg_per_m3 > 0.0;
+    if cov_ok && scalars_ok {
+        unit(dir)
+    } else {
+        None
+    }
+}
+
+fn section_ok(s: &Section) -> bool {
+    match *s {
+        Section::Unknown => true,
+        Section::LowerBoundOnly { min_radius_m } => min_radius_m.is_finite() && min_radius_m >= 0.0,
+        Section::Circle {
+            centre_m,
+            radius_m,
+            centre_sigma_m,
+            radius_sigma_m,
+        } => {
+            finite3(centre_m)
+                && radius_m.is_finite()
+                && radius_m > 0.0
+                && centre_sigma_m.is_finite()
+                && radius_sigma_m.is_finite()
+        }
+    }
+}
+
+/// The navigator. See the module doc.
+#[derive(Debug, Clone)]
+pub struct Navigator<
+    const P: usize,
+    const C: usize,
+    const S: usize,
+    const W: usize,
+    const JN: usize,
+> {
+    cfg: NavConfig,
+    health: HealthState<P, C>,
+    map: LocalMap<S, W, JN>,
+    filter: FlowFilter,
+    section: Section,
+    section_time_s: f64,
+    state: DecideState,
+    pose: Option<HeadPose>,
+    pose_time_s: f64,
+    last_time_s: f64,
+    last: Option<Command>,
+    steps: u64,
+}
+
+/// A navigator sized for a 7-port probe, 32 contact sensors, 128 stations,
+/// 512 wall points and 8 junctions.
+pub type StandardNavigator = Navigator<7, 32, 128, 512, 8>;
+
+impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: usize>
+    Navigator<P, C, S, W, JN>
+{
+    /// Build from a validated configuration.
+    ///
+    /// # Errors
+    /// [`ConfigError`] with [`ConfigField::Capacity`] when `P > 32`,
+    /// `C > 64`, or any of `S`, `W`, `JN` is zero.
+    pub fn new(cfg: ValidConfig) -> Result<Self, ConfigError> {
+        let bad = P > 32 || C > 64 || S == 0 || W == 0 || JN == 0 || JN > usize::from(u16::MAX);
+        if bad {
+            return Err(ConfigError {
+                field: ConfigField::Capacity,
+                value: 0.0,
+            });
+        }
+        let c = *cfg.get();
+        Ok(Self {
+            cfg: c,
+            health: HealthState::new(c.health),
+            map: LocalMap::new(),
+            filter: FlowFilter::NEW,
+            section: Section::Unknown,
+            section_time_s: f64::NEG_INFINITY,
+            state: DecideState {
+                phase: Phase::Follow,
+                in_junction: None,
+                last_heading_map: [1.0, 0.0, 0.0],
+            },
+            pose: None,
+            pose_time_s: f64::NEG_INFINITY,
+            last_time_s: f64::NEG_INFINITY,
+            last: None,
+            steps: 0,
+        })
+    }
+
+    /// The local map.
+    #[must_use]
+    pub const fn map(&self) -> &LocalMap<S, W, JN> {
+        &self.map
+    }
+    /// Sensor and channel health.
+    #[must_use]
+    pub const fn health(&self) -> &HealthState<P, C> {
+        &self.health
+    }
+    /// The streamline filter.
+    #[must_use]
+    pub const fn flow_filter(&self) -> &FlowFilter {
+        &self.filter
+    }
+    /// Decision memory.
+    #[must_use]
+    pub const fn decide_state(&self) -> &DecideState {
+        &self.state
+    }
+    /// The configuration in force.
+    #[must_use]
+    pub const fn config(&self) -> &NavConfig {
+        &self.cfg
+    }
+
+    fn flags(&self) -> HealthFlags {
+        HealthFlags {
+            flow: self.health.flow.state,
+            tactile: self.health.tactile.state,
+            failed_ports: self.health.failed_port_mask(),
+            failed_contacts: self.health.failed_contact_mask(),
+            health_mode: self.health.mode,
+        }
+    }
+
+    fn repeat(&self, time_s: f64, disp: FrameDisposition) -> Command {
+        match self.last {
+            Some(mut c) => {
+                c.record.frame = disp;
+                c
+            }
+            None => {
+                let rec = DecisionRecord {
+                    time_s: if time_s.is_finite() { time_s } else { 0.0 },
+                    reason: ReasonCode::HoldNoPose,
+                    phase: self.state.phase,
+                    frame: disp,
+                    standoff_m: None,
+                    required_standoff_m: self.cfg.decide.required_standoff_m(),
+                    section_radius_m: None,
+                    centre_offset_m: None,
+                    nearest_wall_m: None,
+                    throat_diameter_m: None,
+                    throat_distance_m: None,
+                    upstream_map: None,
+                    flow_dir_sigma_rad: 0.0,
+                    dynamic_pressure_pa: 0.0,
+                    flow_weak_for_s: 0.0,
+                    speed_limit: SpeedLimit::Stopped,
+                    branch: None,
+                };
+                Command {
+                    time_s: rec.time_s,
+                    heading_map: self.state.last_heading_map,
+                    speed_m_per_s: 0.0,
+                    reverse: false,
+                    mode: OperatingMode::Hold,
+                    record: rec,
+                    health: self.flags(),
+                }
+            }
+        }
+    }
+
+    /// One step. Never panics; every output number is finite.
+    pub fn step(&mut self, obs: &Observation) -> Command {
+        let t = obs.time_s;
+        if !t.is_finite() {
+            return self.repeat(t, FrameDisposition::DroppedInvalid);
+        }
+        if self.steps > 0 && t <= self.last_time_s {
+            if self.last_time_s - t <= self.cfg.reorder_window_s {
+                if let Some(w) = &obs.wall {
+                    for p in w.wall_points() {
+                        let _ = self.map.walls.insert(*p);
+                    }
+                }
+                return self.repeat(t, FrameDisposition::LateMerged);
+            }
+            return self.repeat(t, FrameDisposition::DroppedStale);
+        }
+        self.steps = self.steps.saturating_add(1);
+        self.last_time_s = t;
+        let mut disp = FrameDisposition::Used;
+        let dcfg = self.cfg.decide;
+
+        // Pose.
+        match obs.pose {
+            Some(p) if pose_ok(&p) => {
+                self.pose = Some(p);
+                self.pose_time_s = t;
+            }
+            Some(_) => disp = FrameDisposition::PartlyRejected,
+            None => {}
+        }
+        if t - self.pose_time_s > self.cfg.pose_timeout_s {
+            self.pose = None;
+        }
+        let forward = self
+            .pose
+            .as_ref()
+            .and_then(head_forward_map)
+            .unwrap_or(self.state.last_heading_map);
+        let position = self.pose.map(|p| p.position_m);
+
+        // Flow.
+        let flow_dir = obs.flow.as_ref().and_then(flow_dir_ok);
+        if obs.flow.is_some_and(|f| f.velocity_dir_map.is_some()) && flow_dir.is_none() {
+            disp = FrameDisposition::PartlyRejected;
+        }
+        // Wall.
+        let wall = match obs.wall {
+            Some(w) if section_ok(&w.section) => Some(w),
+            Some(mut w) => {
+                disp = FrameDisposition::PartlyRejected;
+                w.section = Section::Unknown;
+                Some(w)
+            }
+            None => None,
+        };
+
+        // Health.
+        let rep = HealthReport {
+            port_suspect_mask: obs.flow.map_or(0, |f| f.port_suspect_mask),
+            port_failed_mask: obs.flow.map_or(0, |f| f.port_failed_mask),
+            probe_reported: obs.flow.is_some(),
+            flow_valid: flow_dir.is_some(),
+            flow_degraded: obs.flow.is_some_and(|f| f.degraded),
+            contact_suspect_mask: wall.map_or(0, |w| w.contact_suspect_mask),
+            contact_failed_mask: wall.map_or(0, |w| w.contact_failed_mask),
+            tactile_reported: wall.is_some(),
+            section_usable: wall.is_some_and(|w| !matches!(w.section, Section::Unknown)),
+            section_lower_bound_only: wall
+                .is_some_and(|w| matches!(w.section, Section::LowerBoundOnly { .. })),
+        };
+        self.health.update(&rep, t);
+
+        // Streamline filter.
+        if let (Some(o), Some(d)) = (obs.flow.as_ref(), flow_dir) {
+            self.filter.update(o, d, t, &self.cfg);
+        }
+        if t - self.filter.last_update_s > self.cfg.health.flow_timeout_s {
+            // Stale flow is not evidence of weak flow.
+            self.filter.weak_since_s = None;
+        }
+
+        // Section memory.
+        if let Some(w) = &wall
+            && !matches!(w.section, Section::Unknown)
+        {
+            self.section = w.section;
+            self.section_time_s = t;
+        }
+        if t - self.section_time_s > self.cfg.health.tactile_timeout_s {
+            self.section = Section::Unknown;
+        }
+
+        // Map upkeep.
+        let retracing = matches!(self.state.phase, Phase::BackOut { .. } | Phase::GaveUp);
+        if let Some(pos) = position {
+            if !retracing {
+                let far = self.map.tip_station().is_none_or(|s| {
+                    dist_sq(s.position_m, pos)
+                        >= self.cfg.station_spacing_m * self.cfg.station_spacing_m
+                });
+                if far {
+                    self.push_station(t, pos, forward, wall.as_ref());
+                }
+                if let Some(w) = &wall {
+                    self.junction_upkeep(t, pos, forward, w);
+                }
+            }
+            self.gather_evidence(pos, forward, obs.flow.as_ref(), flow_dir);
+        }
+
+        let view = HealthView {
+            mode: self.health.mode,
+            flags: self.flags(),
+        };
+        let perception = Perception {
+            time_s: t,
+            position_m: position,
+            forward_map: forward,
+            flow: self.filter.est,
+            flow_weak_since_s: self.filter.weak_since_s,
+            section: self.section,
+            wall: wall.as_ref(),
+            frame: disp,
+        };
+        let d: Decision = decide(&self.map, &view, &perception, &self.state, &dcfg);
+        self.apply(&d);
+        let mut heading = d.heading_map;
+        let mut speed = d.speed_m_per_s;
+        if !(finite3(heading) && unit(heading).is_some()) {
+            heading = [1.0, 0.0, 0.0];
+            speed = 0.0;
+        }
+        if !(speed.is_finite() && speed >= 0.0) {
+            speed = 0.0;
+        }
+        let cmd = Command {
+            time_s: t,
+            heading_map: heading,
+            speed_m_per_s: speed,
+            reverse: d.reverse,
+            mode: d.mode,
+            record: d.record,
+            health: view.flags,
+        };
+        self.last = Some(cmd);
+        cmd
+    }
+
+    fn push_station(
+        &mut self,
+        t: f64,
+        pos: [f64; 3],
+        forward: [f64; 3],
+        wall: Option<&WallObservation>,
+    ) -> Option<u32> {
+        let st = Station {
+            seq: 0,
+            time_s: t,
+            position_m: pos,
+            forward_map: forward,
+            section: self.section,
+            flow: self.filter.est,
+            junction: None,
+            prev_seq: None,
+        };
+        let seq = self.map.push_station(st);
+        // Wall points are decimated to one frame per station.
+        if let Some(w) = wall {
+            for p in w.wall_points() {
+                let _ = self.map.walls.insert(*p);
+            }
+        }
+        seq
+    }
+
+    fn junction_upkeep(&mut self, t: f64, pos: [f64; 3], forward: [f64; 3], w: &WallObservation) {
+        let dcfg = self.cfg.decide;
+        let openings = w.openings();
+        if openings.is_empty() {
+            return;
+        }
+        let merge_cos = libm::cos(0.5 * dcfg.divergence_rad);
+        let near = self
+            .map
+            .junctions
+            .near(pos, dcfg.junction_radius_m)
+            .map(|j| j.id);
+        if let Some(id) = near {
+            if let Some(j) = self.map.junctions.get_mut(id) {
+                for o in openings {
+                    let _ = j.merge_opening(
+                        o.direction_map,
+                        o.clear_width_m,
+                        o.width_is_lower_bound,
+                        merge_cos,
+                    );
+                }
+            }
+            return;
+        }
+        let upstream = self
+            .filter
+            .est
+            .velocity_dir_map
+            .and_then(|v| unit(scale(v, -1.0)));
+        let axis = w.conduit_axis_map.and_then(unit).unwrap_or(forward);
+        let divergent =
+            upstream.is_some_and(|u| libm::fabs(dot(u, axis)) < libm::cos(dcfg.divergence_rad));
+        if !(openings.len() >= 2 || divergent) {
+            return;
+        }
+        // Anchor station.
+        let Some(seq) = self.push_station(t, pos, forward, None) else {
+            return;
+        };
+        let prev = self.map.stations.by_seq(seq).and_then(|s| s.prev_seq);
+        let radius = self.section.usable_radius_m().unwrap_or(0.0);
+        let trunk_flux = mass_flux_proxy(
+            self.filter.est.density_kg_per_m3,
+            self.filter.est.dynamic_pressure_pa,
+            core::f64::consts::PI * radius * radius,
+        );
+        let mut j = Junction::new_at(pos, t, seq, prev);
+        j.trunk_upstream_map = upstream.unwrap_or(forward);
+        j.trunk_radius_m = radius;
+        j.trunk_flux_kg_per_s = trunk_flux;
+        j.parent = self.state.in_junction;
+        for o in openings {
+            let _ = j.merge_opening(
+                o.direction_map,
+                o.clear_width_m,
+                o.width_is_lower_bound,
+                merge_cos,
+            );
+        }
+        if let Some(id) = self.map.junctions.open(j)
+            && let Some(st) = self.map.stations.by_seq_mut(seq)
+        {
+            st.junction = Some(id);
+        }
+    }
+
+    fn gather_evidence(
+        &mut self,
+        pos: [f64; 3],
+        forward: [f64; 3],
+        o: Option<&FlowObservation>,
+        dir: Option<[f64; 3]>,
+    ) {
+        let (Some(o), Some(_)) = (o, dir) else {
+            return;
+        };
+        let (jid, b) = match self.state.phase {
+            Phase::Sample {
+                junction, branch, ..
+            }
+            | Phase::Enter { junction, branch } => (junction, branch),
+            _ => return,
+        };
+        let dcfg = self.cfg.decide;
+        let align = libm::cos(dcfg.sample_align_rad);
+        let Some(j) = self.map.junctions.get_mut(jid) else {
+            return;
+        };
+        if dist_sq(j.anchor_position_m, pos) > dcfg.junction_radius_m * dcfg.junction_radius_m {
+            return;
+        }
+        if let Some(br) = j.branch_mut(b)
+            && dot(br.direction_map, forward) >= align
+        {
+            let flux = mass_flux_proxy(
+                o.density_kg_per_m3,
+                o.dynamic_pressure_pa,
+                disc_area_m2(br.clear_width_m),
+            );
+            br.evidence.add(flux);
+        }
+    }
+
+    fn apply(&mut self, d: &Decision) {
+        self.state = d.next;
+        if let Some(v) = &d.verdict {
+            if let Some(j) = self.map.junctions.get_mut(v.junction) {
+                j.chosen = v.chosen;
+                let n = usize::from(v.count.min(j.branch_count));
+                for (b, s) in j.branches.iter_mut().zip(v.status.iter()).take(n) {
+                    b.status = *s;
+                }
+            }
+            if let Some(tip) = v.set_tip {
+                self.map.tip = Some(tip);
+            }
+        }
+    }
+}
