@@ -123,6 +123,9 @@ pub struct Throat {
 pub struct Opening {
     /// Direction into the opening, unit, map frame.
     pub direction_map: [f64; 3],
+    /// Centre of the opening's mouth (where its axis leaves the current
+    /// conduit), map frame, m.
+    pub mouth_m: [f64; 3],
     /// Clear width, m.
     pub clear_width_m: f64,
     /// True when the width is only a lower bound.
@@ -133,6 +136,7 @@ impl Opening {
     /// A placeholder slot.
     pub const EMPTY: Self = Self {
         direction_map: [1.0, 0.0, 0.0],
+        mouth_m: [0.0; 3],
         clear_width_m: 0.0,
         width_is_lower_bound: true,
     };
@@ -1006,7 +1010,7 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
                     let dir = j
                         .branches()
                         .get(usize::from(c))
-                        .map_or(last, |b| b.direction_map);
+                        .map_or(last, |b| entry_heading(b, pos, cfg.arrive_m));
                     next.phase = Phase::Enter {
                         junction,
                         branch: c,
@@ -1070,6 +1074,16 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     steer(
         dir, pos, &cl, p, rec, next, cfg, health, reason, limit, None,
     )
+}
+
+/// Heading into branch `b` from `pos`: toward a point `arrive_m` inside the
+/// mouth until the mouth is passed, then along the branch.
+fn entry_heading(b: &crate::map::Branch, pos: [f64; 3], arrive_m: f64) -> [f64; 3] {
+    if dot(sub(pos, b.mouth_m), b.direction_map) >= 0.0 {
+        b.direction_map
+    } else {
+        unit(sub(add(b.mouth_m, scale(b.direction_map, arrive_m)), pos)).unwrap_or(b.direction_map)
+    }
 }
 
 fn flow_usable_or_weak(h: &HealthView) -> bool {
@@ -1319,7 +1333,9 @@ fn enter_choice(
             let dir = j
                 .branches()
                 .get(usize::from(c))
-                .map_or(next.last_heading_map, |b| b.direction_map);
+                .map_or(next.last_heading_map, |b| {
+                    entry_heading(b, pos, cfg.arrive_m)
+                });
             let cl = Clearance {
                 standoff_m: rec.standoff_m,
                 section_radius_m: rec.section_radius_m,

@@ -705,6 +705,9 @@ impl FlowEvidence {
 pub struct Branch {
     /// Direction into the branch, unit, map frame.
     pub direction_map: [f64; 3],
+    /// Centre of the branch mouth (where its axis leaves the junction),
+    /// map frame, m; the latest observation.
+    pub mouth_m: [f64; 3],
     /// Clear width estimate, m (mean of full measurements, else the
     /// largest lower bound seen).
     pub clear_width_m: f64,
@@ -721,6 +724,7 @@ pub struct Branch {
 impl Branch {
     const EMPTY: Self = Self {
         direction_map: [1.0, 0.0, 0.0],
+        mouth_m: [0.0; 3],
         clear_width_m: 0.0,
         width_is_lower_bound: true,
         width_samples: 0,
@@ -836,12 +840,13 @@ impl Junction {
     pub fn merge_opening(
         &mut self,
         direction_map: [f64; 3],
+        mouth_m: [f64; 3],
         width_m: f64,
         lower_bound: bool,
         merge_cos: f64,
     ) -> Option<u8> {
         let dir = unit(direction_map)?;
-        if !width_m.is_finite() || width_m < 0.0 {
+        if !width_m.is_finite() || width_m < 0.0 || !finite3(mouth_m) {
             return None;
         }
         let mut best: Option<(usize, f64)> = None;
@@ -863,6 +868,7 @@ impl Junction {
             }
         };
         let b = self.branches.get_mut(k)?;
+        b.mouth_m = mouth_m;
         b.observe_width(width_m, lower_bound);
         u8::try_from(k).ok()
     }
@@ -1101,9 +1107,18 @@ mod tests {
     fn junction_merges_close_openings() {
         let mut j = Junction::EMPTY;
         let c = libm::cos(0.3);
-        assert_eq!(j.merge_opening([1.0, 0.0, 0.0], 0.3, true, c), Some(0));
-        assert_eq!(j.merge_opening([1.0, 0.05, 0.0], 0.4, false, c), Some(0));
-        assert_eq!(j.merge_opening([0.0, 1.0, 0.0], 0.2, false, c), Some(1));
+        assert_eq!(
+            j.merge_opening([1.0, 0.0, 0.0], [0.0; 3], 0.3, true, c),
+            Some(0)
+        );
+        assert_eq!(
+            j.merge_opening([1.0, 0.05, 0.0], [0.0; 3], 0.4, false, c),
+            Some(0)
+        );
+        assert_eq!(
+            j.merge_opening([0.0, 1.0, 0.0], [0.0; 3], 0.2, false, c),
+            Some(1)
+        );
         assert_eq!(j.branch_count, 2);
         assert!(!j.branches[0].width_is_lower_bound);
         assert_eq!(j.branches[0].clear_width_m, 0.4);

@@ -888,6 +888,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
                 for o in openings {
                     let _ = j.merge_opening(
                         o.direction_map,
+                        o.mouth_m,
                         o.clear_width_m,
                         o.width_is_lower_bound,
                         merge_cos,
@@ -926,6 +927,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
         for o in openings {
             let _ = j.merge_opening(
                 o.direction_map,
+                o.mouth_m,
                 o.clear_width_m,
                 o.width_is_lower_bound,
                 merge_cos,

@@ -6,6 +6,8 @@
 //! one, and compares both with the constants committed in
 //! `tests/determinism.rs`. Every new core entry point should be fed here.
 
+pub mod nav_scene;
+
 use nav_core::digest::Fnv64;
 use nav_core::gas::IdealGas;
 
