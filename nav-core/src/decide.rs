@@ -875,19 +875,25 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
         branch: None,
     };
     let mut next = *state;
+    // A held robot keeps its head where it points (frame-independent).
+    let hold_heading = if p.position_m.is_some() {
+        unit(p.forward_map).unwrap_or(last)
+    } else {
+        last
+    };
     let hold = |rec: DecisionRecord, reason: ReasonCode, next: DecideState| {
         let mut rec = rec;
         rec.reason = reason;
         rec.speed_limit = SpeedLimit::Stopped;
         rec.phase = next.phase;
         Decision {
-            heading_map: last,
+            heading_map: hold_heading,
             speed_m_per_s: 0.0,
             reverse: false,
             mode: OperatingMode::Hold,
             record: rec,
             next: DecideState {
-                last_heading_map: last,
+                last_heading_map: hold_heading,
                 ..next
             },
             verdict: None,

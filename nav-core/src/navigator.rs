@@ -577,6 +577,7 @@ pub struct Navigator<
     last_time_s: f64,
     last: Option<Command>,
     steps: u64,
+    heading_set: bool,
 }
 
 /// A navigator sized for a 7-port probe, 32 contact sensors, 128 stations,
@@ -617,6 +618,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             last_time_s: f64::NEG_INFINITY,
             last: None,
             steps: 0,
+            heading_set: false,
         })
     }
 
@@ -734,6 +736,11 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             .as_ref()
             .and_then(head_forward_map)
             .unwrap_or(self.state.last_heading_map);
+        if !self.heading_set && self.pose.is_some() {
+            // The first heading is where the head points, not a map axis.
+            self.state.last_heading_map = forward;
+            self.heading_set = true;
+        }
         let position = self.pose.map(|p| p.position_m);
 
         // Flow.

@@ -123,11 +123,17 @@ pub fn fork_scene(trunk_radius_m: f64, trunk_q_pa: f64, branches: &[ForkBranch])
 /// to fill the map in long runs.
 pub fn chain_scene(nodes: usize) -> Scene {
     let mut s = Scene::new();
-    let mut a = [0.0, 0.0, 0.0];
+    let mut a = [-1.0, 0.0, 0.0];
     let mut parent = None;
     let n = nodes.min(MAX_SEGMENTS / 2);
     for i in 0..n {
-        let yaw = if i % 2 == 0 { 0.25 } else { -0.25 };
+        let yaw = if i == 0 {
+            0.0
+        } else if i % 2 == 0 {
+            0.25
+        } else {
+            -0.25
+        };
         let d = [libm::cos(yaw), libm::sin(yaw), 0.0];
         let b = add(a, scale(d, 10.0));
         let main = s.push(Segment {
