@@ -32,7 +32,58 @@ pub fn libm_digest() -> u64 {
     d.finish()
 }
 
-/// The core's own numerics: gas relations and their root-finding inverses.
+/// A closed-loop navigator run over an invented fork (the strongest wide
+/// branch is a dead end, the strongest overall is too narrow): follow,
+/// sampling, choice, entry, back-out, resumption. Every command is fed to
+/// `d`. No heap allocation (the navigator lives on the stack).
+pub fn navigator_workload(d: &mut Fnv64) {
+    use nav_core::navigator::{NavConfig, StandardNavigator};
+    use nav_scene::{ForkBranch, Rigid, Sim, fork_scene_len};
+    let branches = [
+        ForkBranch {
+            yaw_rad: 0.6,
+            width_m: 0.5,
+            dynamic_pressure_pa: 20.0,
+            dead_end: false,
+        },
+        ForkBranch {
+            yaw_rad: -0.6,
+            width_m: 0.5,
+            dynamic_pressure_pa: 50.0,
+            dead_end: true,
+        },
+        ForkBranch {
+            yaw_rad: 0.0,
+            width_m: 0.2,
+            dynamic_pressure_pa: 500.0,
+            dead_end: false,
+        },
+    ];
+    let scene = fork_scene_len(0.3, 40.0, &branches, 1.5);
+    let rigid = Rigid::new([0.3, -0.2, 1.0], 0.7, [12.0, -3.0, 1.5]);
+    let mut sim = Sim::new(scene, [-1.5, 0.02, 0.0], rigid, 2024, true);
+    let Ok(cfg) = NavConfig::for_robot(0.1).validate() else {
+        d.u64(u64::MAX);
+        return;
+    };
+    let Ok(mut nav) = StandardNavigator::new(cfg) else {
+        d.u64(u64::MAX);
+        return;
+    };
+    for _ in 0..8000 {
+        let o = sim.observe();
+        let c = nav.step(&o);
+        c.digest_into(d);
+        sim.apply(&c);
+        if sim.reached {
+            break;
+        }
+    }
+    d.u64(u64::from(sim.reached));
+}
+
+/// The core's own numerics: gas relations and their root-finding inverses,
+/// then a navigator run ([`navigator_workload`]).
 pub fn core_workload_digest() -> u64 {
     let mut d = Fnv64::new();
     let gases = [
@@ -61,5 +112,6 @@ pub fn core_workload_digest() -> u64 {
             }
         }
     }
+    navigator_workload(&mut d);
     d.finish()
 }

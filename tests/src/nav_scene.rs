@@ -93,6 +93,16 @@ pub struct ForkBranch {
 /// A trunk along +x ending at the origin, where `branches` fork off; each
 /// branch is 6 m long; a live branch ends at a source.
 pub fn fork_scene(trunk_radius_m: f64, trunk_q_pa: f64, branches: &[ForkBranch]) -> Scene {
+    fork_scene_len(trunk_radius_m, trunk_q_pa, branches, 6.0)
+}
+
+/// [`fork_scene`] with branches `branch_len_m` long.
+pub fn fork_scene_len(
+    trunk_radius_m: f64,
+    trunk_q_pa: f64,
+    branches: &[ForkBranch],
+    branch_len_m: f64,
+) -> Scene {
     let mut s = Scene::new();
     let t = s.push(Segment {
         a: [-12.0, 0.0, 0.0],
@@ -107,7 +117,7 @@ pub fn fork_scene(trunk_radius_m: f64, trunk_q_pa: f64, branches: &[ForkBranch])
         let d = [libm::cos(br.yaw_rad), libm::sin(br.yaw_rad), 0.0];
         s.push(Segment {
             a: [0.0; 3],
-            b: scale(d, 6.0),
+            b: scale(d, branch_len_m),
             radius_m: 0.5 * br.width_m,
             dynamic_pressure_pa: br.dynamic_pressure_pa,
             closed_end: br.dead_end,

@@ -82,3 +82,86 @@ fn frame_handling_does_not_allocate() {
     assert_eq!(n, 0);
     assert_eq!(count, 32);
 }
+
+#[test]
+fn navigator_does_not_allocate() {
+    use nav_core::decide::{FlowObservation, Opening, Throat, WallObservation};
+    use nav_core::frame::HeadPose;
+    use nav_core::map::Section;
+    use nav_core::navigator::{NavConfig, Observation, StandardNavigator};
+    let cfg = NavConfig::for_robot(0.1).validate().expect("valid");
+    let (n, finite) = allocations_during(|| {
+        // Built, then stepped: neither may touch the heap.
+        let mut nav = StandardNavigator::new(cfg).expect("capacities");
+        // A small LCG drives pathological but finite frames: random poses,
+        // flows, sections, openings, throats, masks and time jumps, so every
+        // branch of the frame handling runs.
+        let mut s: u64 = 0x1234_5678;
+        let mut r = move || {
+            s = s
+                .wrapping_mul(6_364_136_223_846_793_005)
+                .wrapping_add(1_442_695_040_888_963_407);
+            f64::from(u32::try_from(s >> 40).unwrap_or(0)) / f64::from(1u32 << 24)
+        };
+        let mut t = 0.0;
+        let mut ok = true;
+        for _ in 0..3000 {
+            t += r() * 0.05 - 0.01;
+            let mut w = WallObservation::EMPTY;
+            w.section = if r() < 0.5 {
+                Section::Circle {
+                    centre_m: [r() * 4.0, r() - 0.5, 0.0],
+                    radius_m: 0.05 + r(),
+                    centre_sigma_m: 0.01,
+                    radius_sigma_m: 0.01,
+                }
+            } else {
+                Section::LowerBoundOnly { min_radius_m: r() }
+            };
+            w.throat = (r() < 0.1).then(|| Throat {
+                min_clear_diameter_m: r(),
+                distance_ahead_m: r() * 3.0,
+            });
+            w.end_ahead = r() < 0.02;
+            for _ in 0..(r() * 4.0) as usize {
+                let a = r() * 6.0;
+                w.push_opening(Opening {
+                    direction_map: [libm::cos(a), libm::sin(a), 0.0],
+                    mouth_m: [r() * 4.0, 0.0, 0.0],
+                    clear_width_m: r(),
+                    width_is_lower_bound: r() < 0.5,
+                });
+            }
+            for _ in 0..8 {
+                w.push_wall_point([r() * 4.0, r() - 0.5, r() - 0.5]);
+            }
+            let o = Observation {
+                time_s: t,
+                pose: (r() < 0.95).then(|| HeadPose {
+                    position_m: [r() * 4.0, r() * 0.2 - 0.1, 0.0],
+                    orientation_wxyz: [1.0, 0.0, 0.0, r() - 0.5],
+                    position_sigma_m: 0.01,
+                    attitude_sigma_rad: 0.01,
+                }),
+                flow: (r() < 0.9).then(|| FlowObservation {
+                    velocity_dir_map: (r() < 0.95).then(|| [-1.0, r() - 0.5, 0.0]),
+                    dir_cov_map: [[1e-3, 0.0, 0.0], [0.0, 1e-3, 0.0], [0.0, 0.0, 1e-3]],
+                    dynamic_pressure_pa: r() * 60.0,
+                    dynamic_pressure_sigma_pa: 1.0,
+                    static_pressure_pa: 1e5,
+                    mach: 0.02,
+                    density_kg_per_m3: 1.2,
+                    degraded: r() < 0.1,
+                    port_suspect_mask: u32::from(r() < 0.05),
+                    port_failed_mask: 0,
+                }),
+                wall: (r() < 0.9).then_some(w),
+            };
+            let c = nav.step(&o);
+            ok &= c.heading_map.iter().all(|v| v.is_finite()) && c.speed_m_per_s.is_finite();
+        }
+        ok
+    });
+    assert_eq!(n, 0, "navigator allocated {n} times");
+    assert!(finite);
+}
