@@ -322,6 +322,8 @@ pub struct Sim {
     pub visited: [usize; 32],
     /// Entries in `visited`.
     pub visited_count: usize,
+    /// Contact points reported per frame (at most 32).
+    pub wall_points: usize,
 }
 
 fn seg_param(s: &Segment, p: [f64; 3]) -> (f64, f64, [f64; 3]) {
@@ -352,6 +354,7 @@ impl Sim {
             reached: false,
             visited: [0; 32],
             visited_count: 0,
+            wall_points: 8,
         }
     }
 
@@ -460,7 +463,7 @@ impl Sim {
             dir[2] * e1[0] - dir[0] * e1[2],
             dir[0] * e1[1] - dir[1] * e1[0],
         ];
-        let n_pts = 8.min(MAX_FRAME_WALL_POINTS);
+        let n_pts = self.wall_points.clamp(1, MAX_FRAME_WALL_POINTS);
         for i in 0..n_pts {
             let a = core::f64::consts::TAU * (i as f64) / (n_pts as f64);
             let p = add(
