@@ -9,7 +9,11 @@ fn tube_point(i: usize) -> [f64; 3] {
     let k = i as f64;
     let s = k * 0.01; // along the axis
     let a = k * 2.399_963; // golden-angle spiral around it
-    [s, 0.3 * libm::cos(a) + 0.2 * libm::sin(0.1 * s), 0.3 * libm::sin(a)]
+    [
+        s,
+        0.3 * libm::cos(a) + 0.2 * libm::sin(0.1 * s),
+        0.3 * libm::sin(a),
+    ]
 }
 
 fn fill<I: WallIndex>(idx: &mut I, n: usize) {

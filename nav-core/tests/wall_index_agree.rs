@@ -59,7 +59,12 @@ fn ties_resolve_to_the_oldest_point_in_both() {
     let mut a: LinearWallIndex<8> = LinearWallIndex::new();
     let mut b = KdWallIndex::with_capacity(8);
     // Four points at distance 1 from the origin, inserted in this order.
-    for p in [[0.0, 1.0, 0.0], [1.0, 0.0, 0.0], [0.0, -1.0, 0.0], [-1.0, 0.0, 0.0]] {
+    for p in [
+        [0.0, 1.0, 0.0],
+        [1.0, 0.0, 0.0],
+        [0.0, -1.0, 0.0],
+        [-1.0, 0.0, 0.0],
+    ] {
         a.insert(p).unwrap();
         b.insert(p).unwrap();
     }
