@@ -2,3 +2,6 @@
 //! trace diffs, campaigns, plots and rig-log import.
 
 pub mod record;
+
+pub mod campaign;
+pub mod plot;

@@ -1,0 +1,479 @@
+//! SVG pictures of a run: a top view (x–y) and a side view (x–z) of the
+//! same scene, drawn straight to SVG text.
+//!
+//! The picture is self-contained (no external fonts, scripts or images) and
+//! needs no C library or system font to build: it is plain text. Text uses
+//! the generic `sans-serif` family, which every browser resolves.
+//!
+//! Everything is in map-frame metres; the two panels share one scale so
+//! lengths compare across them.
+
+use std::fmt::Write as _;
+
+/// A labelled junction mark: where a fork was met, which branch was taken
+/// and why the others were not.
+#[derive(Debug, Clone, PartialEq)]
+pub struct JunctionMark {
+    /// Junction position, map frame, m.
+    pub position_m: [f64; 3],
+    /// Direction of the branch taken (unit vector), if one was.
+    pub taken: Option<[f64; 3]>,
+    /// Rejected branches: direction and a short reason.
+    pub rejected: Vec<([f64; 3], String)>,
+}
+
+/// An estimated cross-section: a circle of `radius_m` about `centre_m`,
+/// in the plane normal to `axis`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct SectionMark {
+    /// Centre, map frame, m.
+    pub centre_m: [f64; 3],
+    /// Conduit axis (unit vector).
+    pub axis: [f64; 3],
+    /// Radius, m.
+    pub radius_m: f64,
+}
+
+/// A flow arrow: the fused flow direction at a point, scaled by a speed.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FlowArrow {
+    /// Tail of the arrow, map frame, m.
+    pub position_m: [f64; 3],
+    /// Unit velocity direction (the way the gas moves).
+    pub direction: [f64; 3],
+    /// Relative length in [0, 1].
+    pub strength: f64,
+}
+
+/// Everything a picture shows.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Scene {
+    /// Title line.
+    pub title: String,
+    /// True walls where known: each a polyline in the map frame.
+    pub true_walls: Vec<Vec<[f64; 3]>>,
+    /// True conduit centrelines, for orientation.
+    pub centrelines: Vec<Vec<[f64; 3]>>,
+    /// The head's path.
+    pub path: Vec<[f64; 3]>,
+    /// Estimated cross-sections.
+    pub sections: Vec<SectionMark>,
+    /// Flow arrows.
+    pub flow: Vec<FlowArrow>,
+    /// Contact (wall) points.
+    pub contacts: Vec<[f64; 3]>,
+    /// Junctions.
+    pub junctions: Vec<JunctionMark>,
+    /// Source position, if known.
+    pub source_m: Option<[f64; 3]>,
+    /// Start position.
+    pub start_m: Option<[f64; 3]>,
+}
+
+/// Which two map axes a panel shows.
+#[derive(Debug, Clone, Copy)]
+enum View {
+    Top,
+    Side,
+}
+
+impl View {
+    fn project(self, p: [f64; 3]) -> (f64, f64) {
+        match self {
+            Self::Top => (p[0], p[1]),
+            Self::Side => (p[0], p[2]),
+        }
+    }
+    fn label(self) -> &'static str {
+        match self {
+            Self::Top => "top view (x east, y north)",
+            Self::Side => "side view (x east, z up)",
+        }
+    }
+}
+
+const PANEL_W: f64 = 640.0;
+const PANEL_H: f64 = 420.0;
+const MARGIN: f64 = 36.0;
+const LEGEND_H: f64 = 60.0;
+
+/// Bounding box of everything in the scene, per axis.
+fn bounds(scene: &Scene) -> ([f64; 3], [f64; 3]) {
+    let mut lo = [f64::INFINITY; 3];
+    let mut hi = [f64::NEG_INFINITY; 3];
+    let mut add = |p: &[f64; 3]| {
+        for i in 0..3 {
+            if p[i].is_finite() {
+                lo[i] = lo[i].min(p[i]);
+                hi[i] = hi[i].max(p[i]);
+            }
+        }
+    };
+    scene.true_walls.iter().flatten().for_each(&mut add);
+    scene.centrelines.iter().flatten().for_each(&mut add);
+    scene.path.iter().for_each(&mut add);
+    scene.contacts.iter().for_each(&mut add);
+    scene.sections.iter().for_each(|s| add(&s.centre_m));
+    scene.junctions.iter().for_each(|j| add(&j.position_m));
+    scene.source_m.iter().for_each(&mut add);
+    scene.start_m.iter().for_each(&mut add);
+    for i in 0..3 {
+        if !lo[i].is_finite() || !hi[i].is_finite() {
+            lo[i] = -1.0;
+            hi[i] = 1.0;
+        }
+        if hi[i] - lo[i] < 1.0 {
+            let mid = 0.5 * (hi[i] + lo[i]);
+            lo[i] = mid - 0.5;
+            hi[i] = mid + 0.5;
+        }
+        let pad = 0.05 * (hi[i] - lo[i]);
+        lo[i] -= pad;
+        hi[i] += pad;
+    }
+    (lo, hi)
+}
+
+struct Panel {
+    view: View,
+    x0: f64,
+    y0: f64,
+    scale: f64,
+    lo: (f64, f64),
+    hi: (f64, f64),
+}
+
+impl Panel {
+    fn to_px(&self, p: [f64; 3]) -> (f64, f64) {
+        let (u, v) = self.view.project(p);
+        let x = self.x0 + MARGIN + (u - self.lo.0) * self.scale;
+        let y = self.y0 + PANEL_H - MARGIN - (v - self.lo.1) * self.scale;
+        (x, y)
+    }
+}
+
+fn esc(s: &str) -> String {
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
+        .replace('"', "&quot;")
+}
+
+fn polyline(out: &mut String, panel: &Panel, pts: &[[f64; 3]], style: &str) {
+    if pts.len() < 2 {
+        return;
+    }
+    out.push_str("<polyline fill=\"none\" ");
+    out.push_str(style);
+    out.push_str(" points=\"");
+    for p in pts {
+        let (x, y) = panel.to_px(*p);
+        let _ = write!(out, "{x:.1},{y:.1} ");
+    }
+    out.push_str("\"/>\n");
+}
+
+fn arrow(out: &mut String, panel: &Panel, from: [f64; 3], dir: [f64; 3], len_m: f64, colour: &str) {
+    let to = [
+        from[0] + dir[0] * len_m,
+        from[1] + dir[1] * len_m,
+        from[2] + dir[2] * len_m,
+    ];
+    let (x1, y1) = panel.to_px(from);
+    let (x2, y2) = panel.to_px(to);
+    let (dx, dy) = (x2 - x1, y2 - y1);
+    let n = libm::sqrt(dx * dx + dy * dy);
+    if n < 0.5 {
+        return;
+    }
+    let (ux, uy) = (dx / n, dy / n);
+    let head = 5.0_f64.min(0.5 * n);
+    let (hx1, hy1) = (
+        x2 - head * ux + 0.5 * head * uy,
+        y2 - head * uy - 0.5 * head * ux,
+    );
+    let (hx2, hy2) = (
+        x2 - head * ux - 0.5 * head * uy,
+        y2 - head * uy + 0.5 * head * ux,
+    );
+    let _ = writeln!(
+        out,
+        "<path d=\"M{x1:.1},{y1:.1} L{x2:.1},{y2:.1} M{hx1:.1},{hy1:.1} L{x2:.1},{y2:.1} L{hx2:.1},{hy2:.1}\" stroke=\"{colour}\" stroke-width=\"1.2\" fill=\"none\"/>"
+    );
+}
+
+fn draw_panel(out: &mut String, scene: &Scene, panel: &Panel) {
+    let _ = writeln!(
+        out,
+        "<rect x=\"{:.1}\" y=\"{:.1}\" width=\"{PANEL_W}\" height=\"{PANEL_H}\" fill=\"#fbfbf8\" stroke=\"#999\"/>",
+        panel.x0, panel.y0
+    );
+    let _ = writeln!(
+        out,
+        "<text x=\"{:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"12\" fill=\"#333\">{}</text>",
+        panel.x0 + 8.0,
+        panel.y0 + 16.0,
+        panel.view.label()
+    );
+    // Scale bar: a round number of metres near a fifth of the panel.
+    let span_m = (PANEL_W - 2.0 * MARGIN) / panel.scale;
+    let raw = span_m / 5.0;
+    let mag = libm::pow(10.0, libm::floor(libm::log10(raw)));
+    let bar_m = [1.0, 2.0, 5.0, 10.0]
+        .iter()
+        .map(|k| k * mag)
+        .find(|b| *b >= raw)
+        .unwrap_or(raw);
+    let bx = panel.x0 + MARGIN;
+    let by = panel.y0 + PANEL_H - 12.0;
+    let _ = writeln!(
+        out,
+        "<path d=\"M{bx:.1},{by:.1} h{:.1}\" stroke=\"#333\" stroke-width=\"2\"/><text x=\"{:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"10\" fill=\"#333\">{bar_m} m</text>",
+        bar_m * panel.scale,
+        bx + bar_m * panel.scale + 6.0,
+        by + 4.0
+    );
+    for c in &scene.centrelines {
+        polyline(
+            out,
+            panel,
+            c,
+            "stroke=\"#c9c9c9\" stroke-width=\"1\" stroke-dasharray=\"4 3\"",
+        );
+    }
+    for w in &scene.true_walls {
+        polyline(out, panel, w, "stroke=\"#6b5b45\" stroke-width=\"1.5\"");
+    }
+    for s in &scene.sections {
+        // Draw the section as its diameter segment across the axis, in the
+        // panel plane: the projection of a circle seen edge-on.
+        let (u, v) = panel.view.project(s.axis);
+        let n = libm::sqrt(u * u + v * v);
+        let perp = if n > 1e-9 {
+            match panel.view {
+                View::Top => [-v / n, u / n, 0.0],
+                View::Side => [-v / n, 0.0, u / n],
+            }
+        } else {
+            [0.0, 1.0, 0.0]
+        };
+        let a = [
+            s.centre_m[0] - perp[0] * s.radius_m,
+            s.centre_m[1] - perp[1] * s.radius_m,
+            s.centre_m[2] - perp[2] * s.radius_m,
+        ];
+        let b = [
+            s.centre_m[0] + perp[0] * s.radius_m,
+            s.centre_m[1] + perp[1] * s.radius_m,
+            s.centre_m[2] + perp[2] * s.radius_m,
+        ];
+        polyline(
+            out,
+            panel,
+            &[a, b],
+            "stroke=\"#3a7bd5\" stroke-width=\"1\" stroke-opacity=\"0.6\"",
+        );
+    }
+    for c in &scene.contacts {
+        let (x, y) = panel.to_px(*c);
+        let _ = writeln!(
+            out,
+            "<circle cx=\"{x:.1}\" cy=\"{y:.1}\" r=\"1.4\" fill=\"#d08c1f\"/>"
+        );
+    }
+    polyline(
+        out,
+        panel,
+        &scene.path,
+        "stroke=\"#c0392b\" stroke-width=\"2\"",
+    );
+    let arrow_len = 18.0 / panel.scale;
+    for f in &scene.flow {
+        arrow(
+            out,
+            panel,
+            f.position_m,
+            f.direction,
+            arrow_len * f.strength.clamp(0.2, 1.0),
+            "#2e8b57",
+        );
+    }
+    for j in &scene.junctions {
+        let (x, y) = panel.to_px(j.position_m);
+        let _ = writeln!(
+            out,
+            "<rect x=\"{:.1}\" y=\"{:.1}\" width=\"8\" height=\"8\" fill=\"none\" stroke=\"#6a1b9a\" stroke-width=\"1.5\"/>",
+            x - 4.0,
+            y - 4.0
+        );
+        if let Some(d) = j.taken {
+            arrow(out, panel, j.position_m, d, 2.0 * arrow_len, "#6a1b9a");
+        }
+        for (k, (d, why)) in j.rejected.iter().enumerate() {
+            arrow(out, panel, j.position_m, *d, 1.5 * arrow_len, "#999");
+            let (u, v) = panel.view.project(*d);
+            let (tx, ty) = (x + u * 30.0 + 4.0, y - v * 30.0 + 10.0 * k as f64);
+            let _ = writeln!(
+                out,
+                "<text x=\"{tx:.1}\" y=\"{ty:.1}\" font-family=\"sans-serif\" font-size=\"9\" fill=\"#555\">{}</text>",
+                esc(why)
+            );
+        }
+    }
+    let mut mark = |p: Option<[f64; 3]>, label: &str, colour: &str| {
+        if let Some(p) = p {
+            let (x, y) = panel.to_px(p);
+            let _ = writeln!(
+                out,
+                "<circle cx=\"{x:.1}\" cy=\"{y:.1}\" r=\"5\" fill=\"{colour}\"/><text x=\"{:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"11\" fill=\"{colour}\">{label}</text>",
+                x + 7.0,
+                y - 7.0
+            );
+        }
+    };
+    mark(scene.start_m, "start", "#1f4e79");
+    mark(scene.source_m, "source", "#b8860b");
+}
+
+/// Render the scene as a standalone SVG document.
+#[must_use]
+pub fn render_svg(scene: &Scene) -> String {
+    let (lo, hi) = bounds(scene);
+    let inner_w = PANEL_W - 2.0 * MARGIN;
+    let inner_h = PANEL_H - 2.0 * MARGIN;
+    // One scale for both panels: fit x, y and z spans.
+    let sx = inner_w / (hi[0] - lo[0]);
+    let sy = inner_h / (hi[1] - lo[1]);
+    let sz = inner_h / (hi[2] - lo[2]);
+    let scale = sx.min(sy).min(sz);
+    let width = PANEL_W * 2.0 + 30.0;
+    let height = PANEL_H + LEGEND_H + 30.0;
+    let mut out = String::with_capacity(64 * 1024);
+    let _ = writeln!(
+        out,
+        "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"{width}\" height=\"{height}\" viewBox=\"0 0 {width} {height}\">"
+    );
+    let _ = writeln!(out, "<rect width=\"100%\" height=\"100%\" fill=\"white\"/>");
+    let _ = writeln!(
+        out,
+        "<text x=\"10\" y=\"20\" font-family=\"sans-serif\" font-size=\"15\" fill=\"#111\">{}</text>",
+        esc(&scene.title)
+    );
+    let top = Panel {
+        view: View::Top,
+        x0: 10.0,
+        y0: 30.0,
+        scale,
+        lo: (lo[0], lo[1]),
+        hi: (hi[0], hi[1]),
+    };
+    let side = Panel {
+        view: View::Side,
+        x0: 20.0 + PANEL_W,
+        y0: 30.0,
+        scale,
+        lo: (lo[0], lo[2]),
+        hi: (hi[0], hi[2]),
+    };
+    let _ = (top.hi, side.hi);
+    draw_panel(&mut out, scene, &top);
+    draw_panel(&mut out, scene, &side);
+    // Legend.
+    let ly = 30.0 + PANEL_H + 22.0;
+    let items = [
+        ("#6b5b45", "true wall"),
+        ("#c0392b", "path"),
+        ("#3a7bd5", "estimated cross-section"),
+        ("#2e8b57", "fused flow (downstream)"),
+        ("#d08c1f", "contact"),
+        ("#6a1b9a", "junction / branch taken"),
+        ("#999", "branch rejected (reason)"),
+    ];
+    let mut x = 14.0;
+    for (colour, label) in items {
+        let _ = writeln!(
+            out,
+            "<rect x=\"{x:.1}\" y=\"{:.1}\" width=\"14\" height=\"4\" fill=\"{colour}\"/><text x=\"{:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"11\" fill=\"#333\">{label}</text>",
+            ly - 4.0,
+            x + 18.0,
+            ly + 1.0
+        );
+        x += 26.0 + 6.2 * label.len() as f64;
+    }
+    out.push_str("</svg>\n");
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn scene() -> Scene {
+        Scene {
+            title: "test <&> scene".into(),
+            true_walls: vec![vec![[0.0, 1.0, 0.0], [10.0, 1.0, 0.0]]],
+            centrelines: vec![vec![[0.0, 0.0, 0.0], [10.0, 0.0, 0.0]]],
+            path: vec![[0.0, 0.0, 0.0], [5.0, 0.1, 0.2], [9.0, 0.0, 0.0]],
+            sections: vec![SectionMark {
+                centre_m: [5.0, 0.0, 0.0],
+                axis: [1.0, 0.0, 0.0],
+                radius_m: 1.0,
+            }],
+            flow: vec![FlowArrow {
+                position_m: [2.0, 0.0, 0.0],
+                direction: [-1.0, 0.0, 0.0],
+                strength: 1.0,
+            }],
+            contacts: vec![[3.0, 1.0, 0.0]],
+            junctions: vec![JunctionMark {
+                position_m: [6.0, 0.0, 0.0],
+                taken: Some([1.0, 0.0, 0.0]),
+                rejected: vec![([0.0, 1.0, 0.0], "too narrow: 0.21 m < 0.30 m".into())],
+            }],
+            source_m: Some([10.0, 0.0, 0.0]),
+            start_m: Some([0.0, 0.0, 0.0]),
+        }
+    }
+
+    #[test]
+    fn renders_every_element_and_escapes_text() {
+        let svg = render_svg(&scene());
+        assert!(svg.starts_with("<svg xmlns=\"http://www.w3.org/2000/svg\""));
+        assert!(svg.trim_end().ends_with("</svg>"));
+        assert!(svg.contains("test &lt;&amp;&gt; scene"));
+        assert!(svg.contains("too narrow: 0.21 m &lt; 0.30 m"));
+        // Two panels, each with the path polyline.
+        assert_eq!(
+            svg.matches("stroke=\"#c0392b\" stroke-width=\"2\"").count(),
+            2
+        );
+        assert_eq!(svg.matches("top view").count(), 1);
+        assert_eq!(svg.matches("side view").count(), 1);
+        // No external references.
+        assert!(!svg.contains("href"));
+        assert!(!svg.contains("@import"));
+    }
+
+    #[test]
+    fn same_scene_same_bytes() {
+        assert_eq!(render_svg(&scene()), render_svg(&scene()));
+    }
+
+    #[test]
+    fn empty_scene_is_still_a_document() {
+        let svg = render_svg(&Scene::default());
+        assert!(svg.contains("</svg>"));
+        assert!(!svg.contains("NaN"));
+        assert!(!svg.contains("inf"));
+    }
+
+    #[test]
+    fn points_land_inside_their_panel() {
+        let svg = render_svg(&scene());
+        // Every circle centre lies within the drawing.
+        for part in svg.split("<circle cx=\"").skip(1) {
+            let x: f64 = part.split('"').next().unwrap().parse().unwrap();
+            assert!((0.0..=PANEL_W * 2.0 + 30.0).contains(&x), "x = {x}");
+        }
+    }
+}
