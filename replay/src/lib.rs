@@ -1,4 +1,5 @@
 //! Host tools around `nav-core`: the log format, the simulator, the runner,
 //! trace diffs, campaigns, plots and rig-log import.
 
+pub mod log;
 pub mod record;
