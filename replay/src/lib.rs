@@ -1,5 +1,6 @@
 //! Host tools around `nav-core`: the log format, the simulator, the runner,
 //! trace diffs, campaigns, plots and rig-log import.
 
+pub mod diff;
 pub mod log;
 pub mod record;
