@@ -2,5 +2,6 @@
 //! trace diffs, campaigns, plots and rig-log import.
 
 pub mod diff;
+pub mod import;
 pub mod log;
 pub mod record;
