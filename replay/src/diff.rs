@@ -252,11 +252,21 @@ impl<R: BufRead> Trace<R> {
             if self.text.trim().is_empty() {
                 continue;
             }
-            let v: Value = serde_json::from_str(&self.text).map_err(|e| DiffError::Json {
-                file: self.name.clone(),
-                line: self.line,
-                column: e.column() as u64,
-                message: e.to_string(),
+            let text = self.text.trim_end_matches(['\n', '\r']);
+            let v: Value = serde_json::from_str(text).map_err(|e| {
+                let full = e.to_string();
+                // The position is ours to give (file:line:column); drop
+                // the parser's own "at line 1 column N".
+                let message = full
+                    .rfind(" at line ")
+                    .map_or(full.as_str(), |at| &full[..at])
+                    .to_owned();
+                DiffError::Json {
+                    file: self.name.clone(),
+                    line: self.line,
+                    column: e.column() as u64,
+                    message,
+                }
             })?;
             let Value::Object(obj) = v else {
                 return Err(DiffError::NotObject {
@@ -710,6 +720,10 @@ mod tests {
         }
         assert!(e.to_string().starts_with("b:2:9: not JSON"));
         assert_eq!(Verdict::of(&Err(e)).exit_code(), 2);
+        // A line cut short: the column is the end of that line.
+        let e = run("{\"t\":\n", "{}\n", Tolerance::default()).unwrap_err();
+        assert!(e.to_string().starts_with("a:1:5: not JSON: EOF"), "{e}");
+        assert!(!e.to_string().contains("at line"), "{e}");
         let e = run("[1, 2]\n", "{}\n", Tolerance::default()).unwrap_err();
         assert!(matches!(e, DiffError::NotObject { line: 1, .. }));
     }
