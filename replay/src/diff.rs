@@ -224,6 +224,9 @@ impl std::error::Error for DiffError {
     }
 }
 
+/// A flattened step: dotted path to value.
+type Flat = BTreeMap<String, Value>;
+
 /// Reads one trace, one object at a time.
 struct Trace<R: BufRead> {
     src: R,
@@ -234,7 +237,7 @@ struct Trace<R: BufRead> {
 
 impl<R: BufRead> Trace<R> {
     /// The next object with its line number, flattened.
-    fn next(&mut self) -> Result<Option<(u64, BTreeMap<String, Value>)>, DiffError> {
+    fn next(&mut self) -> Result<Option<(u64, Flat)>, DiffError> {
         loop {
             self.text.clear();
             self.line += 1;
@@ -376,16 +379,16 @@ fn diff_step(
                 }
             }
             std::cmp::Ordering::Equal => {
-                if let (Some((k, va)), Some((_, vb))) = (ia.next(), ib.next()) {
-                    if let Some((abs_diff, rel_diff)) = compare(va, vb, tol) {
-                        out.push(FieldDiff {
-                            path: k.clone(),
-                            a: Some(va.clone()),
-                            b: Some(vb.clone()),
-                            abs_diff,
-                            rel_diff,
-                        });
-                    }
+                if let (Some((k, va)), Some((_, vb))) = (ia.next(), ib.next())
+                    && let Some((abs_diff, rel_diff)) = compare(va, vb, tol)
+                {
+                    out.push(FieldDiff {
+                        path: k.clone(),
+                        a: Some(va.clone()),
+                        b: Some(vb.clone()),
+                        abs_diff,
+                        rel_diff,
+                    });
                 }
             }
         }

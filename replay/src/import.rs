@@ -398,16 +398,16 @@ impl Ctx<'_> {
         want: Option<usize>,
         what: &str,
     ) -> Result<Vec<ColRef>, ImportError> {
-        if let Some(n) = want {
-            if cs.get_ref().len() != n {
-                return Err(self.err(
-                    Some(cs.span()),
-                    format!(
-                        "{what} needs {n} columns, the mapping names {}",
-                        cs.get_ref().len()
-                    ),
-                ));
-            }
+        if let Some(n) = want
+            && cs.get_ref().len() != n
+        {
+            return Err(self.err(
+                Some(cs.span()),
+                format!(
+                    "{what} needs {n} columns, the mapping names {}",
+                    cs.get_ref().len()
+                ),
+            ));
         }
         Ok(cs.get_ref().iter().map(|c| self.col(c)).collect())
     }

@@ -248,11 +248,11 @@ impl<R: Read> LogReader<R> {
                     None => break,
                     Some(j) => i += j,
                 }
-                if let Ok(h) = format::decode_head(&window[i..]) {
-                    if h.len <= self.opts.max_record_bytes {
-                        self.input.pos += i;
-                        return Ok(());
-                    }
+                if let Ok(h) = format::decode_head(&window[i..])
+                    && h.len <= self.opts.max_record_bytes
+                {
+                    self.input.pos += i;
+                    return Ok(());
                 }
                 i += 1;
             }
