@@ -23,9 +23,20 @@ fn main() {
     #[allow(clippy::cast_precision_loss)]
     let mb = t.bytes as f64 / 1e6;
     println!("frames written and read back: {}", t.frames);
-    println!("log size: {mb:.1} MB, {:.1} bytes per frame (frame header included)", t.bytes_per_frame);
-    println!("write: {:.3} s, {:.0} frames/s", t.write_s, frames / t.write_s);
-    println!("read:  {:.3} s, {:.0} frames/s (frame check, CRC, decode)", t.read_s, frames / t.read_s);
+    println!(
+        "log size: {mb:.1} MB, {:.1} bytes per frame (frame header included)",
+        t.bytes_per_frame
+    );
+    println!(
+        "write: {:.3} s, {:.0} frames/s",
+        t.write_s,
+        frames / t.write_s
+    );
+    println!(
+        "read:  {:.3} s, {:.0} frames/s (frame check, CRC, decode)",
+        t.read_s,
+        frames / t.read_s
+    );
     println!(
         "log_size frames={} bytes_per_frame={:.1} write_frames_per_s={:.0} read_frames_per_s={:.0}",
         t.frames,

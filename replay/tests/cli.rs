@@ -80,7 +80,10 @@ fn import_error_names_the_mapping_line() {
     ]);
     assert_eq!(code, 2);
     let line = text.lines().position(|l| l.contains("\"kPa\"")).unwrap() + 1;
-    assert!(err.contains(&format!("bad_map.toml:{line}: unknown pressure unit")), "{err}");
+    assert!(
+        err.contains(&format!("bad_map.toml:{line}: unknown pressure unit")),
+        "{err}"
+    );
 }
 
 #[test]
@@ -91,7 +94,11 @@ fn diff_exit_codes() {
     std::fs::write(&a, "{\"t\": 0, \"h\": 0.5}\n{\"t\": 1, \"h\": 0.5}\n").unwrap();
     std::fs::write(&b, "{\"t\": 0, \"h\": 0.5}\n{\"t\": 1, \"h\": 0.5001}\n").unwrap();
     std::fs::write(&c, "{\"t\": 0, \"h\": 0.5}\n{\"t\": 1 \"h\": 0.5}\n").unwrap();
-    let (a, b, c) = (a.to_str().unwrap(), b.to_str().unwrap(), c.to_str().unwrap());
+    let (a, b, c) = (
+        a.to_str().unwrap(),
+        b.to_str().unwrap(),
+        c.to_str().unwrap(),
+    );
     assert_eq!(replay(&["diff", a, a]).0, 0);
     let (code, out, _) = replay(&["diff", a, b]);
     assert_eq!(code, 1);

@@ -109,7 +109,10 @@ fn reading_memory_does_not_grow_with_the_log() {
         // Look-ahead buffer (64 KiB) plus one frame and the header: a
         // fixed amount, the same for both lengths.
         assert!(peak_long < 128 * 1024, "peak {peak_long} bytes");
-        assert!(peak_long <= peak_short + 4096, "{peak_long} vs {peak_short}");
+        assert!(
+            peak_long <= peak_short + 4096,
+            "{peak_long} vs {peak_short}"
+        );
     }
 }
 
