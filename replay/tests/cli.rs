@@ -108,6 +108,6 @@ fn diff_exit_codes() {
     assert_eq!(replay(&["diff", a, b, "--rel-tol", "1e-4"]).0, 1);
     let (code, _, err) = replay(&["diff", a, c]);
     assert_eq!(code, 2);
-    assert!(err.contains("c.jsonl:2:10: not JSON"), "{err}");
+    assert!(err.contains("c.jsonl:2:9: not JSON"), "{err}");
     assert_eq!(replay(&["diff", a]).0, 2, "usage error");
 }
