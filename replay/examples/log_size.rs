@@ -10,7 +10,7 @@ fn main() {
     let n: u32 = std::env::args()
         .nth(1)
         .and_then(|s| s.parse().ok())
-        .unwrap_or(2_000_000);
+        .unwrap_or(1_000_000);
     let t = match replay::log::synth::throughput(n) {
         Ok(t) => t,
         Err(e) => {
