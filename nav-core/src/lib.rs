@@ -33,7 +33,9 @@
 #[cfg(feature = "std")]
 extern crate std;
 
+pub mod body;
 pub mod digest;
 pub mod frame;
 pub mod gas;
 pub mod num;
+pub mod tactile;
