@@ -12,15 +12,29 @@
 //! - Hyper-accurate (Al-Sharadqah and Chernov 2009, Electron. J. Statist.
 //!   3): `N = 2 N_Taubin - N_Pratt`, which removes the essential bias.
 //!
-//! `det(M - eta N)` is a polynomial of degree at most 4 in `eta`; it is
-//! expanded exactly here and its smallest root found by Newton's method
-//! from `eta = 0` (the procedure of Chernov's book), with an iteration cap.
-//! The parameter vector is a column of the adjugate of `M - eta N`.
+//! Two implementations, which the tests hold against each other:
 //!
-//! For centred data `det(M - eta N_Pratt)` and `det(M - eta N_Hyper)` are
-//! the same polynomial, the `(A, B, C)` parts of the solutions coincide and
-//! only `D` differs: Pratt and the hyper fit share the centre and
-//! `r_hyper^2 = r_pratt^2 - 4 eta`. The tests use that identity.
+//! - [`algebraic_circle_general`]: the 4x4 problem as stated. `det(M - eta
+//!   N)` (degree at most 4 in `eta`) is expanded exactly, its smallest root
+//!   found by Newton's method from `eta = 0` (the procedure of Chernov's
+//!   book) with an iteration cap, and the parameter vector taken as a column
+//!   of the adjugate of `M - eta N`.
+//! - [`algebraic_circle`] (the one the pipeline uses): the same problem
+//!   reduced by hand. `M - eta N` has a 1 in its `(1, 1)` corner, so its
+//!   determinant is that of the 3x3 Schur complement `K(eta)`; for centred
+//!   data, with `Mab` the mean of `a b`,
+//!   `K = [[Mzz - Mz^2 - 4 Mz eta - 4 eta^2, Mxz, Myz], [Mxz, Mxx - eta, Mxy],
+//!   [Myz, Mxy, Myy - eta]]` for BOTH Pratt and the hyper fit
+//!   (`Mzz - Mz^2 - eta` for Kasa), `(A, B, C)` is its null vector and
+//!   `D = -(Mz + 2 eta) A` (Pratt), `(2 eta - Mz) A` (hyper), `-Mz A` (Kasa).
+//!
+//! The reduction shows the identity the issue asks to check: Pratt and the
+//! hyper fit share `eta` and `(A, B, C)`, hence the centre, and differ only
+//! in `D`, so `r_hyper^2 = r_pratt^2 - 4 eta` (normalised units). In
+//! [`algebraic_circle`] that holds by construction; the tests check it on
+//! [`algebraic_circle_general`], where the two constraint matrices enter
+//! separately, and check the two implementations against each other and
+//! against scipy.
 //!
 //! Geometric fit: Levenberg–Marquardt on the orthogonal distances
 //! `d_i = |p_i - c| - r` (as in Shakarji 1998, J. Res. NIST 103(6)),
@@ -132,8 +146,8 @@ impl Default for LmSettings {
     fn default() -> Self {
         Self {
             max_iterations: 50,
-            step_tolerance: 1e-9,
-            cost_tolerance: 1e-12,
+            step_tolerance: 1e-8,
+            cost_tolerance: 1e-10,
         }
     }
 }
@@ -166,6 +180,7 @@ impl GeometricCircle {
 pub(crate) struct Normaliser {
     pub mean: Point2,
     pub scale: f64,
+    inv_scale: f64,
 }
 
 impl Normaliser {
@@ -196,13 +211,17 @@ impl Normaliser {
         if !(positive(scale) && scale.is_finite()) {
             return Err(FitError::Coincident);
         }
-        Ok(Self { mean, scale })
+        Ok(Self {
+            mean,
+            scale,
+            inv_scale: 1.0 / scale,
+        })
     }
 
     pub(crate) fn apply(&self, p: &Point2) -> Point2 {
         [
-            (p[0] - self.mean[0]) / self.scale,
-            (p[1] - self.mean[1]) / self.scale,
+            (p[0] - self.mean[0]) * self.inv_scale,
+            (p[1] - self.mean[1]) * self.inv_scale,
         ]
     }
 
@@ -263,16 +282,24 @@ const PERMUTATIONS_4: [([usize; 4], f64); 24] = [
 ];
 
 /// Coefficients `c[0] + c[1] eta + ... + c[4] eta^4` of `det(M - eta N)`.
+/// Permutations with a factor that is identically zero are skipped.
 fn char_polynomial(m: &Matrix4<f64>, n: &Matrix4<f64>) -> [f64; 5] {
     let mut out = [0.0; 5];
-    for (perm, sign) in &PERMUTATIONS_4 {
-        // Product over rows i of (m[i, p(i)] - eta n[i, p(i)]).
-        let mut poly = [1.0, 0.0, 0.0, 0.0, 0.0];
-        for (row, col) in perm.iter().enumerate() {
+    'perm: for (perm, sign) in &PERMUTATIONS_4 {
+        let mut factors = [(0.0, 0.0); 4];
+        for ((row, col), f) in perm.iter().enumerate().zip(factors.iter_mut()) {
             let a = m.get((row, *col)).copied().unwrap_or(0.0);
             let b = -n.get((row, *col)).copied().unwrap_or(0.0);
+            if a == 0.0 && b == 0.0 {
+                continue 'perm;
+            }
+            *f = (a, b);
+        }
+        // Product over rows of (a + b eta).
+        let mut poly = [1.0, 0.0, 0.0, 0.0, 0.0];
+        for (deg, (a, b)) in factors.iter().enumerate() {
             let mut next = [0.0; 5];
-            for (d, c) in poly.iter().enumerate() {
+            for (d, c) in poly.iter().enumerate().take(deg + 1) {
                 if let Some(s) = next.get_mut(d) {
                     *s += a * c;
                 }
@@ -306,11 +333,10 @@ pub const ROOT_MAX_ITERATIONS: u32 = 64;
 /// stopping as soon as `|p|` stops decreasing (Chernov 2010's rule).
 fn smallest_root(c: &[f64; 5]) -> Result<(f64, u32), FitError> {
     let mut x = 0.0;
-    let (mut y, _) = horner(c, x);
+    let (mut y, mut dy) = horner(c, x);
     let mut it = 0;
     while it < ROOT_MAX_ITERATIONS {
         it += 1;
-        let (_, dy) = horner(c, x);
         if dy == 0.0 {
             break;
         }
@@ -318,13 +344,14 @@ fn smallest_root(c: &[f64; 5]) -> Result<(f64, u32), FitError> {
         if !xn.is_finite() {
             return Err(FitError::NoSolution);
         }
-        let (yn, _) = horner(c, xn);
+        let (yn, dyn_) = horner(c, xn);
         if !positive(libm::fabs(y) - libm::fabs(yn)) {
             break;
         }
         let step = libm::fabs(xn - x);
         x = xn;
         y = yn;
+        dy = dyn_;
         if step <= 1e-15 * libm::fabs(x).max(1e-300) {
             break;
         }
@@ -332,43 +359,68 @@ fn smallest_root(c: &[f64; 5]) -> Result<(f64, u32), FitError> {
     Ok((x, it))
 }
 
-/// Null vector of a (numerically) singular 4x4 matrix: the adjugate
-/// column of largest norm.
-fn null_vector_4(a: &Matrix4<f64>) -> Option<[f64; 4]> {
-    let mut best = [0.0; 4];
-    let mut best_norm = 0.0;
-    for j in 0..4 {
-        // Column j of adj(a) is row j of the cofactor matrix:
-        // adj[i][j] = (-1)^(i+j) det(minor(j, i)).
-        let mut col = [0.0; 4];
-        for (i, slot) in col.iter_mut().enumerate() {
-            let minor = a.remove_row(j).remove_column(i);
-            let sign = if (i + j) % 2 == 0 { 1.0 } else { -1.0 };
-            *slot = sign * minor.determinant();
+/// The three indices other than `k` (0..4).
+const OTHERS_4: [[usize; 3]; 4] = [[1, 2, 3], [0, 2, 3], [0, 1, 3], [0, 1, 2]];
+
+/// Signed cofactor `(-1)^(i+j) det(minor(i, j))` of a 4x4 matrix.
+fn cofactor_4(a: &Matrix4<f64>, i: usize, j: usize) -> f64 {
+    let (Some(rows), Some(cols)) = (OTHERS_4.get(i), OTHERS_4.get(j)) else {
+        return 0.0;
+    };
+    let e = |r: usize, c: usize| {
+        match (rows.get(r), cols.get(c)) {
+            (Some(rr), Some(cc)) => a.get((*rr, *cc)).copied().unwrap_or(0.0),
+            _ => 0.0,
         }
-        let norm = col.iter().map(|v| v * v).sum::<f64>();
-        if norm > best_norm {
-            best_norm = norm;
-            best = col;
+    };
+    let det = e(0, 0) * (e(1, 1) * e(2, 2) - e(1, 2) * e(2, 1))
+        - e(0, 1) * (e(1, 0) * e(2, 2) - e(1, 2) * e(2, 0))
+        + e(0, 2) * (e(1, 0) * e(2, 1) - e(1, 1) * e(2, 0));
+    if (i + j) % 2 == 0 { det } else { -det }
+}
+
+/// Null vector of a (numerically) singular symmetric 4x4 matrix: a column
+/// of its adjugate. For a symmetric rank-3 matrix `adj = c v v^T`, so the
+/// column `j` with the largest diagonal cofactor `|c| v_j^2` is the best
+/// conditioned one.
+fn null_vector_4(a: &Matrix4<f64>) -> Option<[f64; 4]> {
+    let mut j = 0;
+    let mut best = 0.0;
+    for k in 0..4 {
+        let d = libm::fabs(cofactor_4(a, k, k));
+        if d > best {
+            best = d;
+            j = k;
         }
     }
-    if best_norm > 0.0 && best_norm.is_finite() {
-        Some(best)
+    // Column j of adj(a): adj[i][j] = cofactor(j, i).
+    let col = [
+        cofactor_4(a, j, 0),
+        cofactor_4(a, j, 1),
+        cofactor_4(a, j, 2),
+        cofactor_4(a, j, 3),
+    ];
+    let norm = col.iter().map(|v| v * v).sum::<f64>();
+    if norm > 0.0 && norm.is_finite() {
+        Some(col)
     } else {
         None
     }
 }
 
-/// Algebraic circle fit by `method`.
-///
-/// # Errors
-/// [`FitError`] for fewer than 3 points, non-finite or coincident points,
-/// collinear points (the fit is a line), or no root.
-pub fn algebraic_circle(
-    points: &[Point2],
-    method: AlgebraicMethod,
-) -> Result<AlgebraicCircle, FitError> {
-    let norm = Normaliser::new(points, 3)?;
+/// Centred, normalised moments of the points.
+#[derive(Debug, Clone, Copy)]
+struct Moments {
+    mxx: f64,
+    myy: f64,
+    mxy: f64,
+    mxz: f64,
+    myz: f64,
+    mzz: f64,
+    mz: f64,
+}
+
+fn moments(points: &[Point2], norm: &Normaliser) -> Moments {
     let n = count_f64(points.len());
     let (mut mxx, mut myy, mut mxy, mut mxz, mut myz, mut mzz, mut mz) =
         (0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0);
@@ -383,8 +435,144 @@ pub fn algebraic_circle(
         mzz += z * z;
         mz += z;
     }
-    let (mxx, myy, mxy, mxz, myz, mzz, mz) =
-        (mxx / n, myy / n, mxy / n, mxz / n, myz / n, mzz / n, mz / n);
+    Moments {
+        mxx: mxx / n,
+        myy: myy / n,
+        mxy: mxy / n,
+        mxz: mxz / n,
+        myz: myz / n,
+        mzz: mzz / n,
+        mz: mz / n,
+    }
+}
+
+/// Circle from `(A, B, C, D)` in normalised units, back to metres.
+fn circle_from_parameters(
+    [ca, cb, cc, cd]: [f64; 4],
+    norm: &Normaliser,
+) -> Result<Circle, FitError> {
+    let size = libm::sqrt(ca * ca + cb * cb + cc * cc + cd * cd);
+    if !positive(libm::fabs(ca) - 1e-12 * size) {
+        return Err(FitError::Collinear);
+    }
+    let cx = -cb / (2.0 * ca);
+    let cy = -cc / (2.0 * ca);
+    let r2 = (cb * cb + cc * cc - 4.0 * ca * cd) / (4.0 * ca * ca);
+    if !(positive(r2) && r2.is_finite()) {
+        return Err(FitError::NoSolution);
+    }
+    Ok(Circle {
+        centre: norm.undo([cx, cy]),
+        radius_m: libm::sqrt(r2) * norm.scale,
+    })
+}
+
+/// Algebraic circle fit by `method`, by the hand-reduced 3x3 form (module
+/// docs). This is the form the section pipeline uses.
+///
+/// # Errors
+/// [`FitError`] for fewer than 3 points, non-finite or coincident points,
+/// collinear points (the fit is a line), or no root.
+pub fn algebraic_circle(
+    points: &[Point2],
+    method: AlgebraicMethod,
+) -> Result<AlgebraicCircle, FitError> {
+    let norm = Normaliser::new(points, 3)?;
+    let m = moments(points, &norm);
+    let c0 = m.mzz - m.mz * m.mz;
+    let q = m.mxy * m.mxy;
+    let kasa = method == AlgebraicMethod::Kasa;
+    // K(eta)[0][0] and its derivative.
+    let k00 = |eta: f64| {
+        if kasa {
+            (c0 - eta, -1.0)
+        } else {
+            (c0 - 4.0 * m.mz * eta - 4.0 * eta * eta, -4.0 * m.mz - 8.0 * eta)
+        }
+    };
+    // Kasa's constraint has no x, y terms: K's diagonal below the corner
+    // does not move with eta.
+    let e = if kasa { 0.0 } else { 1.0 };
+    // det K(eta) and its derivative.
+    let p = |eta: f64| {
+        let (a, da) = k00(eta);
+        let b = m.mxx - e * eta;
+        let c = m.myy - e * eta;
+        let minor = b * c - q;
+        let det = a * minor - m.mxz * m.mxz * c + 2.0 * m.mxz * m.mxy * m.myz
+            - m.myz * m.myz * b;
+        let ddet = da * minor - e * (a * (b + c) - m.mxz * m.mxz - m.myz * m.myz);
+        (det, ddet)
+    };
+    let mut eta = 0.0;
+    let (mut y, mut dy) = p(eta);
+    let mut iterations = 0;
+    while iterations < ROOT_MAX_ITERATIONS {
+        iterations += 1;
+        if dy == 0.0 {
+            break;
+        }
+        let next = eta - y / dy;
+        if !next.is_finite() {
+            return Err(FitError::NoSolution);
+        }
+        let (yn, dyn_) = p(next);
+        if !positive(libm::fabs(y) - libm::fabs(yn)) {
+            break;
+        }
+        let step = libm::fabs(next - eta);
+        eta = next;
+        y = yn;
+        dy = dyn_;
+        if step <= 1e-15 * libm::fabs(eta).max(1e-300) {
+            break;
+        }
+    }
+    let (a, _) = k00(eta);
+    let r0 = Vector3::new(a, m.mxz, m.myz);
+    let r1 = Vector3::new(m.mxz, m.mxx - e * eta, m.mxy);
+    let r2 = Vector3::new(m.myz, m.mxy, m.myy - e * eta);
+    let mut v = r0.cross(&r1);
+    for c in [r0.cross(&r2), r1.cross(&r2)] {
+        if c.norm_squared() > v.norm_squared() {
+            v = c;
+        }
+    }
+    if !(positive(v.norm_squared()) && v.norm_squared().is_finite()) {
+        return Err(FitError::NoSolution);
+    }
+    let d = match method {
+        AlgebraicMethod::Kasa => -m.mz * v.x,
+        AlgebraicMethod::Pratt => -(m.mz + 2.0 * eta) * v.x,
+        AlgebraicMethod::Hyper => (2.0 * eta - m.mz) * v.x,
+    };
+    Ok(AlgebraicCircle {
+        circle: circle_from_parameters([v.x, v.y, v.z, d], &norm)?,
+        eta,
+        iterations,
+    })
+}
+
+/// Algebraic circle fit by `method`, by the general 4x4 form (module
+/// docs): slower, kept as the independent cross-check of
+/// [`algebraic_circle`].
+///
+/// # Errors
+/// As [`algebraic_circle`].
+pub fn algebraic_circle_general(
+    points: &[Point2],
+    method: AlgebraicMethod,
+) -> Result<AlgebraicCircle, FitError> {
+    let norm = Normaliser::new(points, 3)?;
+    let Moments {
+        mxx,
+        myy,
+        mxy,
+        mxz,
+        myz,
+        mzz,
+        mz,
+    } = moments(points, &norm);
     // Order of the parameter vector: (A, B, C, D) for z, x, y, 1. The data
     // are centred, so the means of x and y are zero.
     #[rustfmt::skip]
@@ -420,53 +608,53 @@ pub fn algebraic_circle(
     let poly = char_polynomial(&m, &constraint);
     let (eta, iterations) = smallest_root(&poly)?;
     let a = null_vector_4(&(m - constraint * eta)).ok_or(FitError::NoSolution)?;
-    let [ca, cb, cc, cd] = a;
-    let size = libm::sqrt(ca * ca + cb * cb + cc * cc + cd * cd);
-    if !positive(libm::fabs(ca) - 1e-12 * size) {
-        return Err(FitError::Collinear);
-    }
-    let cx = -cb / (2.0 * ca);
-    let cy = -cc / (2.0 * ca);
-    let r2 = (cb * cb + cc * cc - 4.0 * ca * cd) / (4.0 * ca * ca);
-    if !(positive(r2) && r2.is_finite()) {
-        return Err(FitError::NoSolution);
-    }
     Ok(AlgebraicCircle {
-        circle: Circle {
-            centre: norm.undo([cx, cy]),
-            radius_m: libm::sqrt(r2) * norm.scale,
-        },
+        circle: circle_from_parameters(a, &norm)?,
         eta,
         iterations,
     })
 }
 
 /// Cost, `J^T J` and `J^T d` of the orthogonal distances, normalised units.
+/// The Jacobian row is `(-ux, -uy, -1)` with `u` the unit vector from the
+/// centre to the point; the symmetric sums are accumulated directly.
 fn circle_normal_equations(
     points: &[Point2],
     norm: &Normaliser,
     p: &Vector3<f64>,
 ) -> (f64, Matrix3<f64>, Vector3<f64>) {
-    let mut cost = 0.0;
-    let mut jtj = Matrix3::zeros();
-    let mut jtd = Vector3::zeros();
+    let (mut cost, mut sxx, mut sxy, mut syy, mut sx, mut sy) = (0.0, 0.0, 0.0, 0.0, 0.0, 0.0);
+    let (mut sxd, mut syd, mut sd) = (0.0, 0.0, 0.0);
     for q in points {
         let [x, y] = norm.apply(q);
         let dx = x - p.x;
         let dy = y - p.y;
         let rho = libm::sqrt(dx * dx + dy * dy);
         let (ux, uy) = if rho > 0.0 {
-            (dx / rho, dy / rho)
+            let inv = 1.0 / rho;
+            (dx * inv, dy * inv)
         } else {
             (1.0, 0.0)
         };
         let d = rho - p.z;
-        let j = Vector3::new(-ux, -uy, -1.0);
         cost += d * d;
-        jtj += j * j.transpose();
-        jtd += j * d;
+        sxx += ux * ux;
+        sxy += ux * uy;
+        syy += uy * uy;
+        sx += ux;
+        sy += uy;
+        sxd += ux * d;
+        syd += uy * d;
+        sd += d;
     }
-    (cost, jtj, jtd)
+    let n = count_f64(points.len());
+    #[rustfmt::skip]
+    let jtj = Matrix3::new(
+        sxx, sxy, sx,
+        sxy, syy, sy,
+        sx,  sy,  n,
+    );
+    (cost, jtj, -Vector3::new(sxd, syd, sd))
 }
 
 /// Geometric (orthogonal-distance) circle fit by Levenberg–Marquardt from
@@ -539,38 +727,114 @@ pub fn geometric_circle(
     })
 }
 
-/// Points used at most by [`angular_coverage_rad`]; larger sets are
-/// sub-sampled with a fixed stride.
-pub const COVERAGE_MAX_POINTS: usize = 256;
+/// A monotone stand-in for the angle of `(x, y)`, in `[0, 4)`: the
+/// "diamond angle" (exact order, no trigonometry).
+fn pseudo_angle(x: f64, y: f64) -> f64 {
+    let s = libm::fabs(x) + libm::fabs(y);
+    if !positive(s) {
+        return 0.0;
+    }
+    let t = y / s;
+    if x >= 0.0 {
+        if t >= 0.0 { t } else { 4.0 + t }
+    } else {
+        2.0 - t
+    }
+}
+
+/// Bins of [`angular_coverage_rad`] (over the pseudo-angle).
+const COVERAGE_BINS: usize = 64;
+
+/// Bin of a pseudo-angle in `[0, 4)`: the top 6 mantissa bits of
+/// `1 + pa / 4`, which lies in `[1, 2)` (a float-to-integer step without
+/// an `as` cast).
+fn coverage_bin(pa: f64) -> usize {
+    let bits = (1.0 + 0.25 * pa.clamp(0.0, 4.0)).to_bits() >> 46;
+    usize::try_from(bits & 63).unwrap_or(0)
+}
 
 /// Angular coverage of the points seen from `centre`: `2 pi` minus the
 /// largest angular gap between neighbouring points, rad.
+///
+/// O(n), no sorting: points go into 64 bins of a monotone pseudo-angle,
+/// each bin keeping its first and last point; the candidate gaps are those
+/// between the last point of one occupied bin and the first of the next
+/// (compared by the pseudo-angle of `(cos gap, sin gap)`), and only the
+/// widest is turned into radians. Exact whenever the widest gap spans a
+/// bin boundary, which every gap wider than a bin (at most 7.2 deg) does;
+/// so below about 352 deg of coverage the value is exact, above it is
+/// within 7.2 deg. Points at the centre itself have no direction and are
+/// ignored.
 #[must_use]
 pub fn angular_coverage_rad(points: &[Point2], centre: &Point2) -> f64 {
-    let mut angles = [0.0f64; COVERAGE_MAX_POINTS];
-    let stride = points.len().div_ceil(COVERAGE_MAX_POINTS).max(1);
-    let mut k = 0;
-    for (slot, p) in angles.iter_mut().zip(points.iter().step_by(stride)) {
-        *slot = libm::atan2(p[1] - centre[1], p[0] - centre[0]);
-        k += 1;
+    let mut occupied: u64 = 0;
+    let mut lo = [(0.0f64, 0.0f64, 0.0f64); COVERAGE_BINS];
+    let mut hi = [(0.0f64, 0.0f64, 0.0f64); COVERAGE_BINS];
+    let mut count = 0usize;
+    for p in points {
+        let (x, y) = (p[0] - centre[0], p[1] - centre[1]);
+        if x == 0.0 && y == 0.0 {
+            continue;
+        }
+        let pa = pseudo_angle(x, y);
+        let b = coverage_bin(pa);
+        let bit = 1u64 << b;
+        let (Some(l), Some(h)) = (lo.get_mut(b), hi.get_mut(b)) else {
+            continue;
+        };
+        if occupied & bit == 0 {
+            *l = (pa, x, y);
+            *h = (pa, x, y);
+            occupied |= bit;
+        } else if pa < l.0 {
+            *l = (pa, x, y);
+        } else if pa > h.0 {
+            *h = (pa, x, y);
+        }
+        count += 1;
     }
-    let Some(used) = angles.get_mut(..k) else {
+    if count < 2 {
         return 0.0;
+    }
+    // Counter-clockwise gap from a to b, as a monotone key plus its sine
+    // and cosine (unnormalised).
+    let gap_key = |a: &(f64, f64, f64), b: &(f64, f64, f64)| {
+        let cross = a.1 * b.2 - a.2 * b.1;
+        let dot = a.1 * b.1 + a.2 * b.2;
+        (pseudo_angle(dot, cross), cross, dot)
     };
-    if used.len() < 2 {
-        return 0.0;
+    let bin_index = |bits: u64| usize::try_from(bits.trailing_zeros()).unwrap_or(0);
+    let first = bin_index(occupied);
+    let mut prev = first;
+    let mut rest = occupied & (occupied - 1);
+    let mut widest = (f64::NEG_INFINITY, 0.0, 1.0);
+    while rest != 0 {
+        let b = bin_index(rest);
+        rest &= rest - 1;
+        if let (Some(h), Some(l)) = (hi.get(prev), lo.get(b)) {
+            let g = gap_key(h, l);
+            if g.0 > widest.0 {
+                widest = g;
+            }
+        }
+        prev = b;
     }
-    used.sort_unstable_by(f64::total_cmp);
-    let mut max_gap = 0.0f64;
-    for w in used.windows(2) {
-        if let [a, b] = w {
-            max_gap = max_gap.max(b - a);
+    if let (Some(h), Some(l)) = (hi.get(prev), lo.get(first)) {
+        let g = gap_key(h, l);
+        // Same direction across the wrap: every point in one direction.
+        let g = if g.0 == 0.0 { (4.0, 0.0, 1.0) } else { g };
+        if g.0 > widest.0 {
+            widest = g;
         }
     }
-    if let (Some(first), Some(last)) = (used.first(), used.last()) {
-        max_gap = max_gap.max(first + core::f64::consts::TAU - last);
+    if widest.0 >= 4.0 {
+        return 0.0;
     }
-    core::f64::consts::TAU - max_gap
+    let mut gap = libm::atan2(widest.1, widest.2);
+    if gap < 0.0 {
+        gap += core::f64::consts::TAU;
+    }
+    core::f64::consts::TAU - gap
 }
 
 #[cfg(test)]
@@ -613,6 +877,63 @@ mod tests {
         assert!((g.circle.radius_m - 0.5).abs() < 1e-9);
     }
 
+    fn noisy_arc(seed: u64, n: usize, span: f64) -> [[f64; 2]; 64] {
+        // Small deterministic perturbations (a linear congruential sequence).
+        let mut state = seed;
+        let mut next = || {
+            state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+            ((state >> 11) as f64 / (1u64 << 53) as f64) - 0.5
+        };
+        let mut pts = arc(n, 0.5, [0.3, -0.2], 0.4, 0.4 + span);
+        for p in pts.iter_mut().take(n) {
+            p[0] += 0.01 * next();
+            p[1] += 0.01 * next();
+        }
+        pts
+    }
+
+    /// The general 4x4 form, where the Pratt and hyper constraint matrices
+    /// enter separately, gives both the same centre and eta, and radii with
+    /// r_hyper^2 = r_pratt^2 - 4 eta s^2 (s the normalising scale), as the
+    /// hand reduction in the module docs predicts.
+    #[test]
+    fn pratt_and_hyper_share_the_centre() {
+        for (seed, span) in [(1, 1.0), (2, 2.5), (3, 6.0), (4, 0.6)] {
+            let pts = noisy_arc(seed, 20, span);
+            let pts = &pts[..20];
+            let p = algebraic_circle_general(pts, AlgebraicMethod::Pratt).unwrap();
+            let h = algebraic_circle_general(pts, AlgebraicMethod::Hyper).unwrap();
+            let scale = Normaliser::new(pts, 3).unwrap().scale;
+            assert!((p.eta - h.eta).abs() <= 1e-12 * p.eta.abs().max(1e-12));
+            for k in 0..2 {
+                assert!((p.circle.centre[k] - h.circle.centre[k]).abs() < 1e-12, "{p:?} {h:?}");
+            }
+            let predicted = p.circle.radius_m.powi(2) - 4.0 * p.eta * scale * scale;
+            assert!((h.circle.radius_m.powi(2) - predicted).abs() < 1e-12);
+            assert!(p.eta > 0.0, "noisy data have a positive eta");
+            assert!(h.circle.radius_m < p.circle.radius_m);
+        }
+    }
+
+    #[test]
+    fn reduced_and_general_forms_agree() {
+        for (seed, span) in [(5, 1.0), (6, 3.0), (7, 6.2)] {
+            let pts = noisy_arc(seed, 16, span);
+            let pts = &pts[..16];
+            for m in [
+                AlgebraicMethod::Kasa,
+                AlgebraicMethod::Pratt,
+                AlgebraicMethod::Hyper,
+            ] {
+                let a = algebraic_circle(pts, m).unwrap();
+                let b = algebraic_circle_general(pts, m).unwrap();
+                assert!((a.circle.radius_m - b.circle.radius_m).abs() < 1e-12, "{m:?}");
+                assert!((a.circle.centre[0] - b.circle.centre[0]).abs() < 1e-12);
+                assert!((a.circle.centre[1] - b.circle.centre[1]).abs() < 1e-12);
+            }
+        }
+    }
+
     #[test]
     fn collinear_points_are_reported() {
         let pts = [[0.0, 0.0], [1.0, 1.0], [2.0, 2.0], [3.0, 3.0]];
@@ -622,6 +943,7 @@ mod tests {
             AlgebraicMethod::Hyper,
         ] {
             assert!(algebraic_circle(&pts, m).is_err(), "{m:?}");
+            assert!(algebraic_circle_general(&pts, m).is_err(), "{m:?}");
         }
         let same = [[1.0, 1.0]; 4];
         assert_eq!(
@@ -636,9 +958,23 @@ mod tests {
     }
 
     #[test]
-    fn coverage_of_half_circle() {
-        let pts = arc(19, 1.0, [0.0, 0.0], 0.0, core::f64::consts::PI);
+    fn coverage_of_arcs() {
+        use core::f64::consts::PI;
+        let pts = arc(19, 1.0, [0.0, 0.0], 0.0, PI);
         let c = angular_coverage_rad(&pts[..19], &[0.0, 0.0]);
-        assert!((c - core::f64::consts::PI).abs() < 1e-12);
+        assert!((c - PI).abs() < 1e-12);
+        // An arc inside one bin, one across the +x axis, one of 300 deg.
+        for (from, to) in [(0.1, 0.15), (-0.5, 0.7), (1.0, 1.0 + 300f64.to_radians())] {
+            let pts = arc(25, 2.0, [1.0, 1.0], from, to);
+            let c = angular_coverage_rad(&pts[..25], &[1.0, 1.0]);
+            assert!((c - (to - from)).abs() < 1e-12, "{from} {to} {c}");
+        }
+        let one_way = [[2.0, 1.0], [3.0, 1.0], [4.0, 1.0]];
+        assert_eq!(angular_coverage_rad(&one_way, &[1.0, 1.0]), 0.0);
+        // 64 evenly spaced points (every bin occupied): within one bin of
+        // the true 360 - 5.625 deg.
+        let pts = arc(64, 1.0, [0.0, 0.0], 0.0, 2.0 * PI * 63.0 / 64.0);
+        let c = angular_coverage_rad(&pts[..64], &[0.0, 0.0]);
+        assert!((c - 2.0 * PI * 63.0 / 64.0).abs() <= 7.2f64.to_radians(), "{c}");
     }
 }

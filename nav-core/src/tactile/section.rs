@@ -224,24 +224,25 @@ pub fn fit_plane_section(points: &[Point2], settings: &SectionFitSettings) -> Pl
     let Ok(g) = geometric_circle(points, &start, &settings.lm) else {
         return lower(half_extent_m(points), LowerBoundReason::Collinear, 0.0);
     };
-    let half = half_extent_m(points);
     let coverage = angular_coverage_rad(points, &g.circle.centre);
     if !g.convergence.converged() {
-        return lower(half, LowerBoundReason::NotConverged, coverage);
+        return lower(half_extent_m(points), LowerBoundReason::NotConverged, coverage);
     }
     let r = g.circle.radius_m;
     let sr = g.radius_sigma_m();
     // Curvature bound: kappa = 1/r, sigma_kappa = sigma_r / r^2.
-    let curvature_bound = r / (1.0 + settings.lower_bound_sigmas * sr / r);
-    let bound = half.max(curvature_bound);
+    let bound = || {
+        let curvature_bound = r / (1.0 + settings.lower_bound_sigmas * sr / r);
+        half_extent_m(points).max(curvature_bound)
+    };
     if coverage < settings.min_coverage_rad {
-        return lower(bound, LowerBoundReason::ShortArc, coverage);
+        return lower(bound(), LowerBoundReason::ShortArc, coverage);
     }
     if !at_most(sr, settings.max_relative_radius_sigma * r) {
-        return lower(bound, LowerBoundReason::RadiusUncertain, coverage);
+        return lower(bound(), LowerBoundReason::RadiusUncertain, coverage);
     }
     if !at_most(r, settings.max_radius_m) {
-        return lower(bound, LowerBoundReason::BeyondLimit, coverage);
+        return lower(bound(), LowerBoundReason::BeyondLimit, coverage);
     }
     let ellipse = if coverage >= settings.ellipse_min_coverage_rad
         && n >= settings.ellipse_min_points.max(6)
