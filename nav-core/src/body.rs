@@ -531,15 +531,12 @@ impl<const M: usize, const S: usize> Body<M, S> {
                     break;
                 };
                 let rot = rot_z(joint.yaw_rad) * rot_y(joint.pitch_rad);
-                let step =
-                    Isometry3::from_parts(Translation3::new(-prev.length_m, 0.0, 0.0), rot);
+                let step = Isometry3::from_parts(Translation3::new(-prev.length_m, 0.0, 0.0), rot);
                 let next = current * step;
                 // Renormalise the composed rotation so a long chain cannot
                 // drift off the unit sphere.
-                current = Isometry3::from_parts(
-                    next.translation,
-                    normalized(next.rotation.into_inner()),
-                );
+                current =
+                    Isometry3::from_parts(next.translation, normalized(next.rotation.into_inner()));
             }
             *slot = current;
         }
@@ -598,7 +595,10 @@ impl<const M: usize, const S: usize> Body<M, S> {
             return f64::INFINITY;
         };
         let p = (iso * nalgebra::Point3::from(*point_module_m)).coords;
-        let head = poses.module_to_map.first().map_or(p, |h| h.translation.vector);
+        let head = poses
+            .module_to_map
+            .first()
+            .map_or(p, |h| h.translation.vector);
         let lever_head = (p - head).norm();
         let mut var = poses.position_sigma_m * poses.position_sigma_m
             + sq(poses.attitude_sigma_rad * lever_head);
@@ -663,7 +663,9 @@ mod tests {
     #[test]
     fn straight_chain_lies_behind_the_head() {
         let b = body3();
-        let poses = b.module_poses(&level_pose(), &[JointAngles::default(); 2]).unwrap();
+        let poses = b
+            .module_poses(&level_pose(), &[JointAngles::default(); 2])
+            .unwrap();
         for k in 0..3 {
             let t = poses.module_to_map(k).unwrap().translation.vector;
             assert_relative_eq!(t.x, 1.0 - 0.3 * k as f64, epsilon = 1e-15);
@@ -691,12 +693,20 @@ mod tests {
         ];
         let poses = b.module_poses(&level_pose(), &joints).unwrap();
         let m1 = poses.module_to_map(1).unwrap();
-        assert_relative_eq!(m1.translation.vector, Vector3::new(0.7, 2.0, 3.0), epsilon = 1e-12);
+        assert_relative_eq!(
+            m1.translation.vector,
+            Vector3::new(0.7, 2.0, 3.0),
+            epsilon = 1e-12
+        );
         let fwd1 = m1.rotation * Vector3::x();
         assert_relative_eq!(fwd1, Vector3::new(0.0, 1.0, 0.0), epsilon = 1e-12);
         let m2 = poses.module_to_map(2).unwrap();
         // origin_2 = origin_1 + R_1 (-0.3, 0, 0) = (0.7, 2.0 - 0.3, 3.0)
-        assert_relative_eq!(m2.translation.vector, Vector3::new(0.7, 1.7, 3.0), epsilon = 1e-12);
+        assert_relative_eq!(
+            m2.translation.vector,
+            Vector3::new(0.7, 1.7, 3.0),
+            epsilon = 1e-12
+        );
         // R_2 x = R_1 Ry(90) x = R_1 (0, 0, -1) = (0, 0, -1)
         let fwd2 = m2.rotation * Vector3::x();
         assert_relative_eq!(fwd2, Vector3::new(0.0, 0.0, -1.0), epsilon = 1e-12);
@@ -713,7 +723,11 @@ mod tests {
         assert!(b.sensor(1, 2).is_none());
         assert!(b.sensor(3, 0).is_none());
         let sp = b.skin_point(0, 0).unwrap();
-        assert_relative_eq!(sp.point_module_m, Vector3::new(-0.2, 0.0, 0.05), epsilon = 1e-15);
+        assert_relative_eq!(
+            sp.point_module_m,
+            Vector3::new(-0.2, 0.0, 0.05),
+            epsilon = 1e-15
+        );
         assert_relative_eq!(sp.normal_module.into_inner(), Vector3::z(), epsilon = 1e-15);
     }
 
@@ -736,7 +750,10 @@ mod tests {
         });
         assert!(matches!(
             Body::new(c),
-            Err(BodyConfigError::SensorModule { sensor: 0, module: 3 })
+            Err(BodyConfigError::SensorModule {
+                sensor: 0,
+                module: 3
+            })
         ));
         let mut c = BodyConfig::<4, 8>::uniform(3, MOD);
         c.push_sensor(SensorSpec {
@@ -744,19 +761,36 @@ mod tests {
             axial_m: 0.31,
             angle_rad: 0.0,
         });
-        assert!(matches!(Body::new(c), Err(BodyConfigError::SensorAxial { .. })));
+        assert!(matches!(
+            Body::new(c),
+            Err(BodyConfigError::SensorAxial { .. })
+        ));
         let c = BodyConfig::<4, 8>::uniform(0, MOD);
-        assert!(matches!(Body::new(c), Err(BodyConfigError::ModuleCount { .. })));
+        assert!(matches!(
+            Body::new(c),
+            Err(BodyConfigError::ModuleCount { .. })
+        ));
         let mut c = BodyConfig::<4, 8>::uniform(2, MOD);
         c.modules[0].length_m = f64::NAN;
-        assert!(matches!(Body::new(c), Err(BodyConfigError::ModuleLength { module: 0, .. })));
+        assert!(matches!(
+            Body::new(c),
+            Err(BodyConfigError::ModuleLength { module: 0, .. })
+        ));
     }
 
     #[test]
     fn runtime_errors() {
         let b = body3();
-        let e = b.module_poses(&level_pose(), &[JointAngles::default(); 1]).unwrap_err();
-        assert_eq!(e, KinematicsError::TooFewJoints { needed: 2, given: 1 });
+        let e = b
+            .module_poses(&level_pose(), &[JointAngles::default(); 1])
+            .unwrap_err();
+        assert_eq!(
+            e,
+            KinematicsError::TooFewJoints {
+                needed: 2,
+                given: 1
+            }
+        );
         let mut p = level_pose();
         p.orientation_wxyz = [2.0, 0.0, 0.0, 0.0];
         assert!(matches!(
@@ -792,7 +826,11 @@ mod tests {
         assert_relative_eq!(s.tangent_map.into_inner(), Vector3::y(), epsilon = 1e-12);
         assert!(b.station(&poses, 0.95).is_none());
         let at_joint = b.station(&poses, 0.3).unwrap();
-        assert_relative_eq!(at_joint.tangent_map.into_inner(), Vector3::x(), epsilon = 1e-12);
+        assert_relative_eq!(
+            at_joint.tangent_map.into_inner(),
+            Vector3::x(),
+            epsilon = 1e-12
+        );
     }
 
     #[test]

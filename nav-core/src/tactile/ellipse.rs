@@ -18,9 +18,7 @@
 //! `-n . dq/dtheta` (the tangential terms vanish), which gives an exact
 //! Jacobian.
 
-use super::fit::{
-    Convergence, FitError, LmSettings, Normaliser, Point2, count_f64, positive, sq,
-};
+use super::fit::{Convergence, FitError, LmSettings, Normaliser, Point2, count_f64, positive, sq};
 use nalgebra::{Matrix3, SMatrix, SVector, Vector3};
 
 /// An ellipse in the cross-section plane.
@@ -286,10 +284,7 @@ fn foot_point(a: f64, b: f64, u: f64, v: f64) -> (f64, f64) {
 
 /// Signed orthogonal distance (positive outside) from `p` to `e` and its
 /// gradient with respect to `(cx, cy, a, b, angle)`.
-fn distance_and_gradient(
-    e: &SVector<f64, 5>,
-    p: &Point2,
-) -> (f64, SVector<f64, 5>) {
+fn distance_and_gradient(e: &SVector<f64, 5>, p: &Point2) -> (f64, SVector<f64, 5>) {
     let (cx, cy, a, b, phi) = (e.x, e.y, e.z, e.w, e.a);
     let (sp, cp) = (libm::sin(phi), libm::cos(phi));
     let dx = p[0] - cx;
@@ -304,19 +299,17 @@ fn distance_and_gradient(
     let gx = x0 / (a * a);
     let gy = x1 / (b * b);
     let gn = libm::hypot(gx, gy);
-    let (nx, ny) = if gn > 0.0 { (gx / gn, gy / gn) } else { (1.0, 0.0) };
+    let (nx, ny) = if gn > 0.0 {
+        (gx / gn, gy / gn)
+    } else {
+        (1.0, 0.0)
+    };
     // Map-frame normal: R(phi) (nx, ny).
     let mx = cp * nx - sp * ny;
     let my = sp * nx + cp * ny;
     let cos_t = x0 / a;
     let sin_t = x1 / b;
-    let grad = SVector::<f64, 5>::new(
-        -mx,
-        -my,
-        -nx * cos_t,
-        -ny * sin_t,
-        -(-nx * x1 + ny * x0),
-    );
+    let grad = SVector::<f64, 5>::new(-mx, -my, -nx * cos_t, -ny * sin_t, -(-nx * x1 + ny * x0));
     (d, grad)
 }
 
@@ -367,7 +360,8 @@ pub fn geometric_ellipse(
         iterations: settings.max_iterations,
     };
     for it in 1..=settings.max_iterations {
-        let damped = jtj + SMatrix::<f64, 5, 5>::from_diagonal(&(jtj.diagonal() * lambda))
+        let damped = jtj
+            + SMatrix::<f64, 5, 5>::from_diagonal(&(jtj.diagonal() * lambda))
             + SMatrix::<f64, 5, 5>::identity() * (1e-15 * lambda);
         let Some(chol) = damped.cholesky() else {
             lambda *= 10.0;
@@ -415,9 +409,8 @@ pub fn geometric_ellipse(
     let s = norm.scale;
     let covariance = if n > 5 {
         jtj.try_inverse().map(|inv| {
-            let scale = SMatrix::<f64, 5, 5>::from_diagonal(&SVector::<f64, 5>::new(
-                s, s, s, s, 1.0,
-            ));
+            let scale =
+                SMatrix::<f64, 5, 5>::from_diagonal(&SVector::<f64, 5>::new(s, s, s, s, 1.0));
             scale * inv * scale * (cost / count_f64(n - 5))
         })
     } else {
@@ -511,7 +504,10 @@ mod tests {
         };
         for p in [[1.0, 2.0], [1.2, 1.1], [0.0, 0.0], [1.0, 1.0]] {
             let rho = ((p[0] - 1.0f64).powi(2) + (p[1] - 1.0f64).powi(2)).sqrt();
-            assert!((signed_distance_m(&c, &p) - (rho - 0.5)).abs() < 1e-12, "{p:?}");
+            assert!(
+                (signed_distance_m(&c, &p) - (rho - 0.5)).abs() < 1e-12,
+                "{p:?}"
+            );
         }
     }
 

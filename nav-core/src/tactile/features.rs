@@ -285,7 +285,9 @@ impl<const W: usize> TactileMap<W> {
             }
         }
         let det = sw * swxx - swx * swx;
-        if report.sections_estimated < settings.min_sections.max(2) || !crate::tactile::fit::positive(det) {
+        if report.sections_estimated < settings.min_sections.max(2)
+            || !crate::tactile::fit::positive(det)
+        {
             return report;
         }
         let slope = (sw * swxy - swx * swy) / det;
@@ -293,8 +295,7 @@ impl<const W: usize> TactileMap<W> {
         report.slope = slope;
         report.slope_sigma = slope_sigma;
         let k = settings.significance_sigmas;
-        report.status = if slope < -settings.min_narrowing_slope && slope + k * slope_sigma < 0.0
-        {
+        report.status = if slope < -settings.min_narrowing_slope && slope + k * slope_sigma < 0.0 {
             ThroatStatus::Narrowing
         } else if slope > settings.min_narrowing_slope && slope - k * slope_sigma > 0.0 {
             ThroatStatus::Widening

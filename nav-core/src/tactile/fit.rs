@@ -208,7 +208,9 @@ impl Normaliser {
             ss += sq(p[0] - mean[0]) + sq(p[1] - mean[1]);
         }
         let scale = libm::sqrt(ss / n);
-        if !(positive(scale) && scale.is_finite()) {
+        // Spread at rounding level of the coordinates: coincident.
+        let floor = 1e-12 * (libm::fabs(mean[0]) + libm::fabs(mean[1]));
+        if !(positive(scale - floor) && scale.is_finite()) {
             return Err(FitError::Coincident);
         }
         Ok(Self {
@@ -367,16 +369,14 @@ fn cofactor_4(a: &Matrix4<f64>, i: usize, j: usize) -> f64 {
     let (Some(rows), Some(cols)) = (OTHERS_4.get(i), OTHERS_4.get(j)) else {
         return 0.0;
     };
-    let e = |r: usize, c: usize| {
-        match (rows.get(r), cols.get(c)) {
-            (Some(rr), Some(cc)) => a.get((*rr, *cc)).copied().unwrap_or(0.0),
-            _ => 0.0,
-        }
+    let e = |r: usize, c: usize| match (rows.get(r), cols.get(c)) {
+        (Some(rr), Some(cc)) => a.get((*rr, *cc)).copied().unwrap_or(0.0),
+        _ => 0.0,
     };
     let det = e(0, 0) * (e(1, 1) * e(2, 2) - e(1, 2) * e(2, 1))
         - e(0, 1) * (e(1, 0) * e(2, 2) - e(1, 2) * e(2, 0))
         + e(0, 2) * (e(1, 0) * e(2, 1) - e(1, 1) * e(2, 0));
-    if (i + j) % 2 == 0 { det } else { -det }
+    if (i + j).is_multiple_of(2) { det } else { -det }
 }
 
 /// Null vector of a (numerically) singular symmetric 4x4 matrix: a column
@@ -487,7 +487,10 @@ pub fn algebraic_circle(
         if kasa {
             (c0 - eta, -1.0)
         } else {
-            (c0 - 4.0 * m.mz * eta - 4.0 * eta * eta, -4.0 * m.mz - 8.0 * eta)
+            (
+                c0 - 4.0 * m.mz * eta - 4.0 * eta * eta,
+                -4.0 * m.mz - 8.0 * eta,
+            )
         }
     };
     // Kasa's constraint has no x, y terms: K's diagonal below the corner
@@ -499,8 +502,7 @@ pub fn algebraic_circle(
         let b = m.mxx - e * eta;
         let c = m.myy - e * eta;
         let minor = b * c - q;
-        let det = a * minor - m.mxz * m.mxz * c + 2.0 * m.mxz * m.mxy * m.myz
-            - m.myz * m.myz * b;
+        let det = a * minor - m.mxz * m.mxz * c + 2.0 * m.mxz * m.mxy * m.myz - m.myz * m.myz * b;
         let ddet = da * minor - e * (a * (b + c) - m.mxz * m.mxz - m.myz * m.myz);
         (det, ddet)
     };
@@ -709,11 +711,7 @@ pub fn geometric_circle(
         }
     }
     let n = points.len();
-    let sigma2_n = if n > 3 {
-        cost / count_f64(n - 3)
-    } else {
-        0.0
-    };
+    let sigma2_n = if n > 3 { cost / count_f64(n - 3) } else { 0.0 };
     let cov_n = jtj.try_inverse().unwrap_or_else(Matrix3::zeros) * sigma2_n;
     let s2 = norm.scale * norm.scale;
     Ok(GeometricCircle {
@@ -881,7 +879,9 @@ mod tests {
         // Small deterministic perturbations (a linear congruential sequence).
         let mut state = seed;
         let mut next = || {
-            state = state.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
             ((state >> 11) as f64 / (1u64 << 53) as f64) - 0.5
         };
         let mut pts = arc(n, 0.5, [0.3, -0.2], 0.4, 0.4 + span);
@@ -906,7 +906,10 @@ mod tests {
             let scale = Normaliser::new(pts, 3).unwrap().scale;
             assert!((p.eta - h.eta).abs() <= 1e-12 * p.eta.abs().max(1e-12));
             for k in 0..2 {
-                assert!((p.circle.centre[k] - h.circle.centre[k]).abs() < 1e-12, "{p:?} {h:?}");
+                assert!(
+                    (p.circle.centre[k] - h.circle.centre[k]).abs() < 1e-12,
+                    "{p:?} {h:?}"
+                );
             }
             let predicted = p.circle.radius_m.powi(2) - 4.0 * p.eta * scale * scale;
             assert!((h.circle.radius_m.powi(2) - predicted).abs() < 1e-12);
@@ -927,7 +930,10 @@ mod tests {
             ] {
                 let a = algebraic_circle(pts, m).unwrap();
                 let b = algebraic_circle_general(pts, m).unwrap();
-                assert!((a.circle.radius_m - b.circle.radius_m).abs() < 1e-12, "{m:?}");
+                assert!(
+                    (a.circle.radius_m - b.circle.radius_m).abs() < 1e-12,
+                    "{m:?}"
+                );
                 assert!((a.circle.centre[0] - b.circle.centre[0]).abs() < 1e-12);
                 assert!((a.circle.centre[1] - b.circle.centre[1]).abs() < 1e-12);
             }
@@ -975,6 +981,9 @@ mod tests {
         // the true 360 - 5.625 deg.
         let pts = arc(64, 1.0, [0.0, 0.0], 0.0, 2.0 * PI * 63.0 / 64.0);
         let c = angular_coverage_rad(&pts[..64], &[0.0, 0.0]);
-        assert!((c - 2.0 * PI * 63.0 / 64.0).abs() <= 7.2f64.to_radians(), "{c}");
+        assert!(
+            (c - 2.0 * PI * 63.0 / 64.0).abs() <= 7.2f64.to_radians(),
+            "{c}"
+        );
     }
 }

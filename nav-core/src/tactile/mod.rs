@@ -53,8 +53,8 @@ pub use features::{
     OpeningStatus, ThroatReport, ThroatSettings, ThroatStatus,
 };
 pub use section::{
-    AxisSource, CircleSection, LowerBoundReason, PlaneSection, SectionEstimate,
-    SectionFitSettings, SectionSettings, SectionShape, UnknownReason, fit_plane_section,
+    AxisSource, CircleSection, LowerBoundReason, PlaneSection, SectionEstimate, SectionFitSettings,
+    SectionSettings, SectionShape, UnknownReason, fit_plane_section,
 };
 
 use crate::body::{Body, KinematicsError, ModulePoses, head_to_map};
@@ -351,7 +351,13 @@ impl<const W: usize> TactileMap<W> {
     ///
     /// # Errors
     /// [`TactileError`] naming the bad field or contact.
-    pub fn ingest<const P: usize, const J: usize, const C: usize, const M: usize, const S: usize>(
+    pub fn ingest<
+        const P: usize,
+        const J: usize,
+        const C: usize,
+        const M: usize,
+        const S: usize,
+    >(
         &mut self,
         frame: &SensorFrame<P, J, C>,
         body: &Body<M, S>,

@@ -226,7 +226,11 @@ pub fn fit_plane_section(points: &[Point2], settings: &SectionFitSettings) -> Pl
     };
     let coverage = angular_coverage_rad(points, &g.circle.centre);
     if !g.convergence.converged() {
-        return lower(half_extent_m(points), LowerBoundReason::NotConverged, coverage);
+        return lower(
+            half_extent_m(points),
+            LowerBoundReason::NotConverged,
+            coverage,
+        );
     }
     let r = g.circle.radius_m;
     let sr = g.radius_sigma_m();
@@ -502,10 +506,5 @@ fn blend_axis(
     if !(positive(norm) && norm.is_finite()) {
         return fallback;
     }
-    (
-        blended / norm,
-        AxisSource::Blended {
-            normal_weight: w_n,
-        },
-    )
+    (blended / norm, AxisSource::Blended { normal_weight: w_n })
 }
