@@ -50,8 +50,8 @@ pub struct GeometricEllipse {
     pub convergence: Convergence,
 }
 
-/// Cap on the foot-point bisection.
-pub const FOOT_MAX_ITERATIONS: u32 = 160;
+/// Cap on the foot-point root iterations.
+pub const FOOT_MAX_ITERATIONS: u32 = 80;
 
 /// Real roots of `x^3 + a x^2 + b x + c` (Numerical Recipes section 5.6
 /// forms), each polished by two Newton steps. Returns the roots and count.
@@ -216,8 +216,84 @@ pub fn direct_ellipse(points: &[Point2]) -> Result<Ellipse, FitError> {
     })
 }
 
+/// Root of Eberly's `G(s) = (n0/(s + r0))^2 + (z1/(s + 1))^2 - 1` on his
+/// bracket `[z1 - 1, 0]` (inside, `g < 0`) or `[z1 - 1, hypot(n0, z1) - 1]`
+/// (outside). Newton's method runs on `F = 1 - (G + 1)^(-1/2)`, which has
+/// the same root and sign and is exactly linear for a circle (so it takes
+/// one or two steps where Newton on `G` crawls away from the pole at
+/// `s = -1`), started from the circle-like estimate `hypot(n0, z1) - 1`.
+/// Safeguarded: the bracket is kept by sign at every new point;
+/// a Newton step leaving it is replaced by bisection, and so is the next
+/// step after one that halved neither `|F|` nor the bracket (Eberly's own
+/// method is the bisection). Stops when `|F|` is at rounding level, the
+/// step or the bracket is at rounding level, or at
+/// [`FOOT_MAX_ITERATIONS`].
+fn foot_root(r0: f64, n0: f64, z1: f64, g: f64) -> f64 {
+    let eval = |s: f64| {
+        let a = n0 / (s + r0);
+        let b = z1 / (s + 1.0);
+        let q = a * a + b * b; // G + 1
+        let dq = -2.0 * (a * a / (s + r0) + b * b / (s + 1.0));
+        let inv_sqrt = 1.0 / libm::sqrt(q);
+        (1.0 - inv_sqrt, 0.5 * inv_sqrt / q * dq)
+    };
+    let mut lo = z1 - 1.0;
+    let mut hi = if g < 0.0 {
+        0.0
+    } else {
+        libm::hypot(n0, z1) - 1.0
+    };
+    // Start from the circle-like estimate hypot(n0, z1) - 1 (the root when
+    // r0 = 1), inside the bracket.
+    let mut s = (libm::hypot(n0, z1) - 1.0).clamp(lo, hi);
+    let (mut f, mut df) = eval(s);
+    if libm::fabs(f) <= 4.0 * f64::EPSILON {
+        return s;
+    }
+    if f > 0.0 {
+        lo = s;
+    } else {
+        hi = s;
+    }
+    let mut bisect = false;
+    for _ in 0..FOOT_MAX_ITERATIONS {
+        let width = hi - lo;
+        if width <= 4.0 * f64::EPSILON * (1.0 + libm::fabs(lo)) {
+            break;
+        }
+        let newton = s - f / df;
+        let next = if !bisect && df != 0.0 && newton > lo && newton < hi {
+            newton
+        } else {
+            0.5 * (lo + hi)
+        };
+        let (fn_, dfn) = eval(next);
+        // F is of order one: at rounding level it is at the root.
+        if libm::fabs(fn_) <= 4.0 * f64::EPSILON {
+            return next;
+        }
+        if fn_ > 0.0 {
+            lo = next;
+        } else {
+            hi = next;
+        }
+        let step = libm::fabs(next - s);
+        // Bisect next time only when neither |F| nor the bracket halved.
+        bisect = libm::fabs(fn_) >= 0.5 * libm::fabs(f) && hi - lo > 0.5 * width;
+        s = next;
+        f = fn_;
+        df = dfn;
+        if step <= 4.0 * f64::EPSILON * (1.0 + libm::fabs(s)) {
+            break;
+        }
+    }
+    s
+}
+
 /// Foot point on `x^2/e0^2 + y^2/e1^2 = 1` (e0 >= e1 > 0) of a point in
-/// the first quadrant, by Eberly's robust bisection.
+/// the first quadrant, by Eberly's method ("Distance from a point to an
+/// ellipse", Geometric Tools, 2011) with the root found by
+/// [`foot_root`].
 fn foot_first_quadrant(e0: f64, e1: f64, y0: f64, y1: f64) -> (f64, f64) {
     if y1 > 0.0 {
         if y0 > 0.0 {
@@ -227,27 +303,7 @@ fn foot_first_quadrant(e0: f64, e1: f64, y0: f64, y1: f64) -> (f64, f64) {
             if g != 0.0 {
                 let r0 = sq(e0 / e1);
                 let n0 = r0 * z0;
-                let mut s0 = z1 - 1.0;
-                let mut s1 = if g < 0.0 {
-                    0.0
-                } else {
-                    libm::hypot(n0, z1) - 1.0
-                };
-                let mut s = 0.0;
-                for _ in 0..FOOT_MAX_ITERATIONS {
-                    s = 0.5 * (s0 + s1);
-                    if s == s0 || s == s1 {
-                        break;
-                    }
-                    let g = sq(n0 / (s + r0)) + sq(z1 / (s + 1.0)) - 1.0;
-                    if g > 0.0 {
-                        s0 = s;
-                    } else if g < 0.0 {
-                        s1 = s;
-                    } else {
-                        break;
-                    }
-                }
+                let s = foot_root(r0, n0, z1, g);
                 (r0 * y0 / (s + r0), y1 / (s + 1.0))
             } else {
                 (y0, y1)
@@ -285,8 +341,17 @@ fn foot_point(a: f64, b: f64, u: f64, v: f64) -> (f64, f64) {
 /// Signed orthogonal distance (positive outside) from `p` to `e` and its
 /// gradient with respect to `(cx, cy, a, b, angle)`.
 fn distance_and_gradient(e: &SVector<f64, 5>, p: &Point2) -> (f64, SVector<f64, 5>) {
-    let (cx, cy, a, b, phi) = (e.x, e.y, e.z, e.w, e.a);
-    let (sp, cp) = (libm::sin(phi), libm::cos(phi));
+    distance_and_gradient_sc(e, libm::sin(e.a), libm::cos(e.a), p)
+}
+
+/// [`distance_and_gradient`] with the angle's sine and cosine given.
+fn distance_and_gradient_sc(
+    e: &SVector<f64, 5>,
+    sp: f64,
+    cp: f64,
+    p: &Point2,
+) -> (f64, SVector<f64, 5>) {
+    let (cx, cy, a, b) = (e.x, e.y, e.z, e.w);
     let dx = p[0] - cx;
     let dy = p[1] - cy;
     let u = cp * dx + sp * dy;
@@ -321,9 +386,10 @@ fn ellipse_normal_equations(
     let mut cost = 0.0;
     let mut jtj = SMatrix::<f64, 5, 5>::zeros();
     let mut jtd = SVector::<f64, 5>::zeros();
+    let (sp, cp) = (libm::sin(e.a), libm::cos(e.a));
     for q in points {
         let p = norm.apply(q);
-        let (d, g) = distance_and_gradient(e, &p);
+        let (d, g) = distance_and_gradient_sc(e, sp, cp, &p);
         cost += d * d;
         jtj += g * g.transpose();
         jtd += g * d;
@@ -360,16 +426,20 @@ pub fn geometric_ellipse(
         iterations: settings.max_iterations,
     };
     for it in 1..=settings.max_iterations {
-        let damped = jtj
-            + SMatrix::<f64, 5, 5>::from_diagonal(&(jtj.diagonal() * lambda))
-            + SMatrix::<f64, 5, 5>::identity() * (1e-15 * lambda);
+        // Marquardt scaling with a floor, so a direction the data do not
+        // determine (the angle of a near-circle) is damped, not free.
+        let diag = jtj.diagonal();
+        let floor = 1e-6 * diag.max().max(1e-300);
+        let damped =
+            jtj + SMatrix::<f64, 5, 5>::from_diagonal(&diag.map(|d| d.max(floor) * lambda));
         let Some(chol) = damped.cholesky() else {
             lambda *= 10.0;
             continue;
         };
         let delta = -chol.solve(&jtd);
         let small = delta.norm() <= settings.step_tolerance * (p.norm() + settings.step_tolerance);
-        let cand = p + delta;
+        let mut cand = p + delta;
+        cand.a = wrap_half_pi(cand.a);
         let ok_shape = cand.z > 0.0 && cand.w > 0.0;
         let (c_cost, c_jtj, c_jtd) = if ok_shape {
             ellipse_normal_equations(points, &norm, &cand)
@@ -401,10 +471,9 @@ pub fn geometric_ellipse(
         let (a, b) = (p.z, p.w);
         p.z = b;
         p.w = a;
-        p.a += core::f64::consts::FRAC_PI_2;
+        p.a = wrap_half_pi(p.a + core::f64::consts::FRAC_PI_2);
+        (cost, jtj, _) = ellipse_normal_equations(points, &norm, &p);
     }
-    p.a = wrap_half_pi(p.a);
-    let (cost, jtj, _) = ellipse_normal_equations(points, &norm, &p);
     let n = points.len();
     let s = norm.scale;
     let covariance = if n > 5 {
@@ -508,6 +577,37 @@ mod tests {
                 (signed_distance_m(&c, &p) - (rho - 0.5)).abs() < 1e-12,
                 "{p:?}"
             );
+        }
+    }
+
+    /// Distance against brute force: the nearest of 200 000 points sampled
+    /// along the ellipse, for points inside, outside, near the axes.
+    #[test]
+    fn distance_matches_dense_sampling() {
+        let e = Ellipse {
+            centre: [0.3, -0.2],
+            semi_major_m: 0.7,
+            semi_minor_m: 0.25,
+            major_axis_angle_rad: -0.6,
+        };
+        let (sp, cp) = (e.major_axis_angle_rad.sin(), e.major_axis_angle_rad.cos());
+        for p in [
+            [0.3, -0.2],
+            [1.2, -0.5],
+            [0.35, -0.15],
+            [-0.5, 0.4],
+            [0.31, -0.21],
+            [0.9, -0.6],
+        ] {
+            let mut best = f64::INFINITY;
+            for k in 0..200_000 {
+                let t = core::f64::consts::TAU * k as f64 / 200_000.0;
+                let (u, v) = (e.semi_major_m * t.cos(), e.semi_minor_m * t.sin());
+                let q = [e.centre[0] + cp * u - sp * v, e.centre[1] + sp * u + cp * v];
+                best = best.min(((p[0] - q[0]).powi(2) + (p[1] - q[1]).powi(2)).sqrt());
+            }
+            let d = signed_distance_m(&e, &p);
+            assert!((d.abs() - best).abs() < 1e-6, "{p:?}: {d} vs {best}");
         }
     }
 
