@@ -13,7 +13,7 @@ use std::process::Command;
 /// `libm_digest()` as committed.
 const LIBM_DIGEST: u64 = 0x9a68_5bd4_cbd2_b230;
 /// `core_workload_digest()` as committed.
-const CORE_DIGEST: u64 = 0x2b31_b7a4_ca42_ac8a;
+const CORE_DIGEST: u64 = 0xb1ee_ac49_845c_cb4a;
 
 #[test]
 fn twice_in_process() {

@@ -66,8 +66,18 @@ const METHODS: [(AlgebraicMethod, &str); 3] = [
 fn gander_golub_strebel_six_points() {
     let d = data();
     let g = &d["gander_golub_strebel_1994"];
-    let xs: Vec<f64> = g["x"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
-    let ys: Vec<f64> = g["y"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
+    let xs: Vec<f64> = g["x"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_f64().unwrap())
+        .collect();
+    let ys: Vec<f64> = g["y"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_f64().unwrap())
+        .collect();
     assert_eq!(xs, [1.0, 2.0, 5.0, 7.0, 9.0, 3.0]);
     assert_eq!(ys, [7.0, 6.0, 8.0, 7.0, 5.0, 7.0]);
     let pts = points_of(&xs, &ys);
@@ -75,16 +85,24 @@ fn gander_golub_strebel_six_points() {
         let want = circle(&g[key]);
         for fit in [algebraic_circle(&pts, m), algebraic_circle_general(&pts, m)] {
             let fit = fit.unwrap().circle;
-            assert!(max_diff(&fit, &want) < 1e-9, "{key}: {fit:?} vs scipy {want:?}");
+            assert!(
+                max_diff(&fit, &want) < 1e-9,
+                "{key}: {fit:?} vs scipy {want:?}"
+            );
         }
     }
-    let start = algebraic_circle(&pts, AlgebraicMethod::Hyper).unwrap().circle;
+    let start = algebraic_circle(&pts, AlgebraicMethod::Hyper)
+        .unwrap()
+        .circle;
     let geo = geometric_circle(&pts, &start, &tight()).unwrap();
     assert!(geo.convergence.converged());
     let want = circle(&g["geometric"]);
     // The cost valley is flat along the centre's y: both solvers stop where
     // the RSS agrees to ~1e-16 relative, which leaves ~1e-8 m of play.
-    assert!(max_diff(&geo.circle, &want) < 1e-7, "{geo:?} vs scipy {want:?}");
+    assert!(
+        max_diff(&geo.circle, &want) < 1e-7,
+        "{geo:?} vs scipy {want:?}"
+    );
     let rss = geo.rms_residual_m.powi(2) * 6.0;
     let want_rss = g["geometric_rss"].as_f64().unwrap();
     assert!((rss - want_rss).abs() < 1e-9 * (1.0 + want_rss));
@@ -121,7 +139,9 @@ fn noisy_arcs_match_scipy() {
                 assert!(rel < 1e-8, "{label} {key}: {fit:?} vs {want:?}");
             }
         }
-        let start = algebraic_circle(&pts, AlgebraicMethod::Hyper).unwrap().circle;
+        let start = algebraic_circle(&pts, AlgebraicMethod::Hyper)
+            .unwrap()
+            .circle;
         let geo = geometric_circle(&pts, &start, &tight()).unwrap();
         let want = circle(&case["geometric"]);
         let rel = max_diff(&geo.circle, &want) / want.radius_m;
@@ -129,7 +149,10 @@ fn noisy_arcs_match_scipy() {
         assert!(rel < 1e-7, "{label} geometric: {geo:?} vs {want:?}");
         let rss = geo.rms_residual_m.powi(2) * pts.len() as f64;
         let want_rss = case["geometric_rss"].as_f64().unwrap();
-        assert!(rss <= want_rss * (1.0 + 1e-9) + 1e-18, "{label}: rss {rss} > scipy {want_rss}");
+        assert!(
+            rss <= want_rss * (1.0 + 1e-9) + 1e-18,
+            "{label}: rss {rss} > scipy {want_rss}"
+        );
     }
     println!("worst relative differences: algebraic {worst_alg:e}, geometric {worst_geo:e}");
 }

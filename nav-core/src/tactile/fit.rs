@@ -147,7 +147,7 @@ impl Default for LmSettings {
         Self {
             max_iterations: 50,
             step_tolerance: 1e-8,
-            cost_tolerance: 1e-10,
+            cost_tolerance: 1e-8,
         }
     }
 }
@@ -478,6 +478,15 @@ pub fn algebraic_circle(
     method: AlgebraicMethod,
 ) -> Result<AlgebraicCircle, FitError> {
     let norm = Normaliser::new(points, 3)?;
+    algebraic_circle_in(points, &norm, method)
+}
+
+fn algebraic_circle_in(
+    points: &[Point2],
+    norm: &Normaliser,
+    method: AlgebraicMethod,
+) -> Result<AlgebraicCircle, FitError> {
+    let norm = *norm;
     let m = moments(points, &norm);
     let c0 = m.mzz - m.mz * m.mz;
     let q = m.mxy * m.mxy;
@@ -671,6 +680,31 @@ pub fn geometric_circle(
     settings: &LmSettings,
 ) -> Result<GeometricCircle, FitError> {
     let norm = Normaliser::new(points, 3)?;
+    geometric_circle_in(points, &norm, initial, settings)
+}
+
+/// The hyper-accurate algebraic fit, then the geometric refinement from
+/// it, sharing one normalisation pass: the pair the section pipeline uses.
+///
+/// # Errors
+/// As [`algebraic_circle`] and [`geometric_circle`].
+pub fn hyper_then_geometric(
+    points: &[Point2],
+    settings: &LmSettings,
+) -> Result<(AlgebraicCircle, GeometricCircle), FitError> {
+    let norm = Normaliser::new(points, 3)?;
+    let h = algebraic_circle_in(points, &norm, AlgebraicMethod::Hyper)?;
+    let g = geometric_circle_in(points, &norm, &h.circle, settings)?;
+    Ok((h, g))
+}
+
+fn geometric_circle_in(
+    points: &[Point2],
+    norm: &Normaliser,
+    initial: &Circle,
+    settings: &LmSettings,
+) -> Result<GeometricCircle, FitError> {
+    let norm = *norm;
     let c0 = norm.apply(&initial.centre);
     let mut p = Vector3::new(c0[0], c0[1], initial.radius_m / norm.scale);
     if !(p.x.is_finite() && p.y.is_finite() && p.z.is_finite()) {
@@ -726,17 +760,42 @@ pub fn geometric_circle(
 }
 
 /// A monotone stand-in for the angle of `(x, y)`, in `[0, 4)`: the
-/// "diamond angle" (exact order, no trigonometry).
+/// "diamond angle" (exact order, no trigonometry), written with selects
+/// rather than branches. `d theta / d pa` lies in `[1, 2]`.
 fn pseudo_angle(x: f64, y: f64) -> f64 {
     let s = libm::fabs(x) + libm::fabs(y);
-    if !positive(s) {
-        return 0.0;
-    }
-    let t = y / s;
-    if x >= 0.0 {
-        if t >= 0.0 { t } else { 4.0 + t }
+    let t = if positive(s) { y / s } else { 0.0 };
+    let a = if x < 0.0 { 2.0 - t } else { t };
+    if a < 0.0 { a + 4.0 } else { a }
+}
+
+/// The direction (on the diamond `|x| + |y| = 1`) of a pseudo-angle: the
+/// exact inverse of [`pseudo_angle`] up to rounding.
+fn pseudo_direction(pa: f64) -> (f64, f64) {
+    if pa < 1.0 {
+        (1.0 - pa, pa)
+    } else if pa < 2.0 {
+        let t = 2.0 - pa;
+        (t - 1.0, t)
+    } else if pa < 3.0 {
+        let t = 2.0 - pa;
+        (-(1.0 + t), t)
     } else {
-        2.0 - t
+        let t = pa - 4.0;
+        (1.0 + t, t)
+    }
+}
+
+/// Counter-clockwise angle from pseudo-angle `a` to pseudo-angle `b`, rad,
+/// in `[0, 2 pi)`.
+fn pseudo_gap_rad(a: f64, b: f64) -> f64 {
+    let (ax, ay) = pseudo_direction(a);
+    let (bx, by) = pseudo_direction(b);
+    let g = libm::atan2(ax * by - ay * bx, ax * bx + ay * by);
+    if g < 0.0 {
+        g + core::f64::consts::TAU
+    } else {
+        g
     }
 }
 
@@ -754,20 +813,21 @@ fn coverage_bin(pa: f64) -> usize {
 /// Angular coverage of the points seen from `centre`: `2 pi` minus the
 /// largest angular gap between neighbouring points, rad.
 ///
-/// O(n), no sorting: points go into 64 bins of a monotone pseudo-angle,
-/// each bin keeping its first and last point; the candidate gaps are those
-/// between the last point of one occupied bin and the first of the next
-/// (compared by the pseudo-angle of `(cos gap, sin gap)`), and only the
-/// widest is turned into radians. Exact whenever the widest gap spans a
-/// bin boundary, which every gap wider than a bin (at most 7.2 deg) does;
-/// so below about 352 deg of coverage the value is exact, above it is
-/// within 7.2 deg. Points at the centre itself have no direction and are
-/// ignored.
+/// O(n), no sorting, one `atan2` in the usual case: points go into 64 bins
+/// of a monotone pseudo-angle, each bin keeping its smallest and largest
+/// value; the candidate gaps are those from the last value of one occupied
+/// bin to the first of the next. Since `d theta / d pa` is within `[1, 2]`,
+/// only candidates whose pseudo-angle gap is at least half the largest can
+/// be the widest in radians; those are measured exactly. Exact whenever
+/// the widest gap spans a bin boundary, which every gap wider than a bin
+/// (at most 7.2 deg) does: below about 352 deg of coverage the value is
+/// exact, above it within 7.2 deg. Points at the centre itself have no
+/// direction and are ignored.
 #[must_use]
 pub fn angular_coverage_rad(points: &[Point2], centre: &Point2) -> f64 {
     let mut occupied: u64 = 0;
-    let mut lo = [(0.0f64, 0.0f64, 0.0f64); COVERAGE_BINS];
-    let mut hi = [(0.0f64, 0.0f64, 0.0f64); COVERAGE_BINS];
+    let mut lo = [f64::INFINITY; COVERAGE_BINS];
+    let mut hi = [f64::NEG_INFINITY; COVERAGE_BINS];
     let mut count = 0usize;
     for p in points {
         let (x, y) = (p[0] - centre[0], p[1] - centre[1]);
@@ -776,63 +836,63 @@ pub fn angular_coverage_rad(points: &[Point2], centre: &Point2) -> f64 {
         }
         let pa = pseudo_angle(x, y);
         let b = coverage_bin(pa);
-        let bit = 1u64 << b;
-        let (Some(l), Some(h)) = (lo.get_mut(b), hi.get_mut(b)) else {
-            continue;
-        };
-        if occupied & bit == 0 {
-            *l = (pa, x, y);
-            *h = (pa, x, y);
-            occupied |= bit;
-        } else if pa < l.0 {
-            *l = (pa, x, y);
-        } else if pa > h.0 {
-            *h = (pa, x, y);
+        if let (Some(l), Some(h)) = (lo.get_mut(b), hi.get_mut(b)) {
+            *l = l.min(pa);
+            *h = h.max(pa);
         }
+        occupied |= 1u64 << b;
         count += 1;
     }
     if count < 2 {
         return 0.0;
     }
-    // Counter-clockwise gap from a to b, as a monotone key plus its sine
-    // and cosine (unnormalised).
-    let gap_key = |a: &(f64, f64, f64), b: &(f64, f64, f64)| {
-        let cross = a.1 * b.2 - a.2 * b.1;
-        let dot = a.1 * b.1 + a.2 * b.2;
-        (pseudo_angle(dot, cross), cross, dot)
-    };
     let bin_index = |bits: u64| usize::try_from(bits.trailing_zeros()).unwrap_or(0);
     let first = bin_index(occupied);
-    let mut prev = first;
+    let last = usize::try_from(63 - occupied.leading_zeros()).unwrap_or(0);
+    let (Some(first_lo), Some(last_hi)) = (lo.get(first).copied(), hi.get(last).copied()) else {
+        return 0.0;
+    };
+    // Every point in one direction: no coverage.
+    if first_lo == last_hi {
+        return 0.0;
+    }
+    // Pass 1: the largest pseudo-angle gap (the wrap from the last bin's
+    // largest value to the first bin's smallest adds a full turn, 4).
+    let pseudo_gap = |from: usize, to: usize| match (hi.get(from), lo.get(to)) {
+        (Some(h), Some(l)) => {
+            let g = l - h;
+            if g < 0.0 { g + 4.0 } else { g }
+        }
+        _ => 0.0,
+    };
+    let mut max_pd = first_lo + 4.0 - last_hi;
     let mut rest = occupied & (occupied - 1);
-    let mut widest = (f64::NEG_INFINITY, 0.0, 1.0);
+    let mut prev = first;
     while rest != 0 {
         let b = bin_index(rest);
         rest &= rest - 1;
-        if let (Some(h), Some(l)) = (hi.get(prev), lo.get(b)) {
-            let g = gap_key(h, l);
-            if g.0 > widest.0 {
-                widest = g;
-            }
+        max_pd = max_pd.max(pseudo_gap(prev, b));
+        prev = b;
+    }
+    // Pass 2: measure the candidates within a factor 2.
+    let mut widest = 0.0f64;
+    let wrap_pd = first_lo + 4.0 - last_hi;
+    if wrap_pd >= 0.5 * max_pd {
+        widest = widest.max(pseudo_gap_rad(last_hi, first_lo));
+    }
+    let mut rest = occupied & (occupied - 1);
+    let mut prev = first;
+    while rest != 0 {
+        let b = bin_index(rest);
+        rest &= rest - 1;
+        if pseudo_gap(prev, b) >= 0.5 * max_pd
+            && let (Some(h), Some(l)) = (hi.get(prev), lo.get(b))
+        {
+            widest = widest.max(pseudo_gap_rad(*h, *l));
         }
         prev = b;
     }
-    if let (Some(h), Some(l)) = (hi.get(prev), lo.get(first)) {
-        let g = gap_key(h, l);
-        // Same direction across the wrap: every point in one direction.
-        let g = if g.0 == 0.0 { (4.0, 0.0, 1.0) } else { g };
-        if g.0 > widest.0 {
-            widest = g;
-        }
-    }
-    if widest.0 >= 4.0 {
-        return 0.0;
-    }
-    let mut gap = libm::atan2(widest.1, widest.2);
-    if gap < 0.0 {
-        gap += core::f64::consts::TAU;
-    }
-    core::f64::consts::TAU - gap
+    core::f64::consts::TAU - widest
 }
 
 #[cfg(test)]

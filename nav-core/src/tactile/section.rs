@@ -36,8 +36,8 @@
 
 use super::ellipse::{GeometricEllipse, direct_ellipse, geometric_ellipse};
 use super::fit::{
-    AlgebraicMethod, Convergence, FitError, LmSettings, Point2, algebraic_circle,
-    angular_coverage_rad, at_most, count_f64, geometric_circle, positive, sq,
+    Convergence, FitError, LmSettings, Point2, angular_coverage_rad, at_most, count_f64,
+    hyper_then_geometric, positive, sq,
 };
 use super::{Station, TactileMap};
 use nalgebra::{Matrix3, SymmetricEigen, Unit, Vector3};
@@ -214,15 +214,12 @@ pub fn fit_plane_section(points: &[Point2], settings: &SectionFitSettings) -> Pl
         },
         ellipse: None,
     };
-    let start = match algebraic_circle(points, AlgebraicMethod::Hyper) {
-        Ok(a) => a.circle,
+    let (start, g) = match hyper_then_geometric(points, &settings.lm) {
+        Ok((h, g)) => (h.circle, g),
         Err(FitError::NonFinite { .. }) => return unknown(UnknownReason::NonFinite),
         Err(FitError::Coincident) => return unknown(UnknownReason::Coincident),
         Err(FitError::TooFewPoints { .. }) => return unknown(UnknownReason::TooFewPoints),
         Err(_) => return lower(half_extent_m(points), LowerBoundReason::Collinear, 0.0),
-    };
-    let Ok(g) = geometric_circle(points, &start, &settings.lm) else {
-        return lower(half_extent_m(points), LowerBoundReason::Collinear, 0.0);
     };
     let coverage = angular_coverage_rad(points, &g.circle.centre);
     if !g.convergence.converged() {
