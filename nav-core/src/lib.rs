@@ -33,6 +33,7 @@
 #[cfg(feature = "std")]
 extern crate std;
 
+pub mod body;
 pub mod decide;
 pub mod digest;
 pub mod frame;
@@ -41,3 +42,4 @@ pub mod health;
 pub mod map;
 pub mod navigator;
 pub mod num;
+pub mod tactile;

@@ -8,8 +8,18 @@
 
 pub mod nav_scene;
 
+use nav_core::body::{Body, BodyConfig, ModuleSpec, SensorSpec};
 use nav_core::digest::Fnv64;
+use nav_core::frame::{Contact, HeadPose, JointAngles, SensorFrame};
 use nav_core::gas::IdealGas;
+use nav_core::tactile::ellipse::{direct_ellipse, geometric_ellipse};
+use nav_core::tactile::fit::{
+    AlgebraicMethod, LmSettings, algebraic_circle, algebraic_circle_general, geometric_circle,
+};
+use nav_core::tactile::{
+    OpeningReport, OpeningSettings, SectionSettings, SectionShape, TactileConfig, TactileMap,
+    ThroatSettings, fit_plane_section,
+};
 
 /// Transcendental functions straight from `libm`, over a fixed grid that
 /// includes awkward arguments (large, tiny, near multiples of pi).
@@ -113,5 +123,162 @@ pub fn core_workload_digest() -> u64 {
         }
     }
     navigator_workload(&mut d);
+    tactile_workload(&mut d);
     d.finish()
+}
+
+/// Body kinematics, contact ingestion, circle and ellipse fits, sections,
+/// throat and openings on a fixed synthetic traverse (our own scenario: a
+/// 4-module body snaking through a slowly narrowing, slightly elliptic
+/// pipe). No allocation: everything lives on the stack.
+pub fn tactile_workload(d: &mut Fnv64) {
+    // Plane fits on fixed arcs with a deterministic wobble.
+    let mut pts = [[0.0f64; 2]; 24];
+    for (k, span) in [0.8f64, 2.0, 3.5, 6.2].iter().enumerate() {
+        let kf = f64::from(u32::try_from(k).unwrap_or(0));
+        for (i, p) in pts.iter_mut().enumerate() {
+            let t = span * f64::from(u32::try_from(i).unwrap_or(0)) / 23.0 + 0.3 * kf;
+            let wobble = 0.002 * libm::sin(7.3 * t + kf);
+            *p = [
+                0.1 + (0.45 + wobble) * libm::cos(t),
+                -0.2 + (0.4 + wobble) * libm::sin(t),
+            ];
+        }
+        for m in [
+            AlgebraicMethod::Kasa,
+            AlgebraicMethod::Pratt,
+            AlgebraicMethod::Hyper,
+        ] {
+            for r in [algebraic_circle(&pts, m), algebraic_circle_general(&pts, m)] {
+                match r {
+                    Ok(a) => d.f64s(&[a.circle.centre[0], a.circle.centre[1], a.circle.radius_m]),
+                    Err(_) => d.u64(u64::MAX),
+                }
+            }
+        }
+        if let Ok(h) = algebraic_circle(&pts, AlgebraicMethod::Hyper)
+            && let Ok(g) = geometric_circle(&pts, &h.circle, &LmSettings::default())
+        {
+            d.f64s(&[g.circle.radius_m, g.rms_residual_m, g.covariance.m33]);
+        }
+        if let Ok(e) = direct_ellipse(&pts) {
+            d.f64s(&[e.semi_major_m, e.semi_minor_m, e.major_axis_angle_rad]);
+            if let Ok(g) = geometric_ellipse(&pts, &e, &LmSettings::default()) {
+                d.f64s(&[
+                    g.ellipse.semi_major_m,
+                    g.ellipse.semi_minor_m,
+                    g.rms_residual_m,
+                ]);
+            }
+        }
+        let s = fit_plane_section(&pts, &Default::default());
+        d.f64(s.coverage_rad);
+        match s.shape {
+            SectionShape::Circle(c) => d.f64(c.radius_m),
+            SectionShape::LowerBoundOnly { min_radius_m, .. } => d.f64(min_radius_m),
+            SectionShape::Unknown { .. } => d.u64(1),
+        }
+    }
+
+    // The traverse.
+    let mut cfg = BodyConfig::<4, 32>::uniform(
+        4,
+        ModuleSpec {
+            length_m: 0.2,
+            radius_m: 0.05,
+        },
+    );
+    for m in 0..4u16 {
+        for j in 0..8u16 {
+            cfg.push_sensor(SensorSpec {
+                module: m,
+                axial_m: 0.1,
+                angle_rad: f64::from(j) * core::f64::consts::FRAC_PI_4,
+            });
+        }
+    }
+    cfg.joint_sigma_rad = 0.002;
+    let Ok(body) = Body::new(cfg) else {
+        d.u64(2);
+        return;
+    };
+    let Ok(mut map) = TactileMap::<256>::new(TactileConfig::default()) else {
+        d.u64(3);
+        return;
+    };
+    for k in 0..120u32 {
+        let kf = f64::from(k);
+        let t = 0.05 * kf;
+        let roll = 0.37 * kf;
+        let pipe_r = 0.3 - 0.0004 * kf;
+        let off = pipe_r - 0.05;
+        // The body lies along +x, offset toward the wall at angle `roll`;
+        // sensor 0 of each module (rolled to face the wall) touches.
+        let mut f: SensorFrame<0, 3, 8> = SensorFrame::empty(t);
+        f.pose = Some(HeadPose {
+            position_m: [
+                0.01 * kf + 0.1,
+                off * libm::cos(roll),
+                off * libm::sin(roll),
+            ],
+            orientation_wxyz: [libm::cos(0.5 * roll), libm::sin(0.5 * roll), 0.0, 0.0],
+            position_sigma_m: 0.001,
+            attitude_sigma_rad: 0.001,
+        });
+        f.joints = Some([JointAngles::default(); 3]);
+        for m in 0..4u16 {
+            f.push_contact(Contact {
+                module: m,
+                sensor: 0,
+                force_n: 1.0 + 0.1 * f64::from(m),
+                normal_module: None,
+            });
+            // A light reading on the opposite sensor: free space.
+            f.push_contact(Contact {
+                module: m,
+                sensor: 4,
+                force_n: 0.0,
+                normal_module: None,
+            });
+        }
+        match map.ingest(&f, &body) {
+            Ok(r) => d.u64(u64::try_from(r.wall_points + 10 * r.free_probes).unwrap_or(0)),
+            Err(_) => d.u64(4),
+        }
+    }
+    let pose = HeadPose {
+        position_m: [1.29, 0.0, 0.0],
+        orientation_wxyz: [1.0, 0.0, 0.0, 0.0],
+        position_sigma_m: 0.0,
+        attitude_sigma_rad: 0.0,
+    };
+    let Ok(poses) = body.module_poses(&pose, &[JointAngles::default(); 3]) else {
+        d.u64(5);
+        return;
+    };
+    let set = SectionSettings::default();
+    let Some(first) = body.station(&poses, 0.1) else {
+        d.u64(6);
+        return;
+    };
+    let mut list = [first; 4];
+    for (i, slot) in list.iter_mut().enumerate() {
+        let arc = 0.1 + 0.2 * f64::from(u32::try_from(i).unwrap_or(0));
+        *slot = body.station(&poses, arc).unwrap_or(first);
+    }
+    for s in &list {
+        let sec = map.section_at(s, &set);
+        d.f64(sec.plane.coverage_rad);
+        d.f64s(sec.axis_map.as_slice());
+        if let SectionShape::Circle(c) = sec.plane.shape {
+            d.f64s(&[c.centre_plane_m[0], c.centre_plane_m[1], c.radius_m]);
+        }
+        let o: OpeningReport<4> = map.openings(&sec, &set, &OpeningSettings::default());
+        d.u64(u64::try_from(o.count).unwrap_or(0));
+        for c in o.candidates() {
+            d.f64s(&[c.angle_rad, c.clear_width_m]);
+        }
+    }
+    let th = map.throat(&list, &set, &ThroatSettings::default());
+    d.f64s(&[th.slope, th.min_clear_diameter_m.unwrap_or(-1.0)]);
 }

@@ -13,7 +13,7 @@ use std::process::Command;
 /// `libm_digest()` as committed.
 const LIBM_DIGEST: u64 = 0x9a68_5bd4_cbd2_b230;
 /// `core_workload_digest()` as committed.
-const CORE_DIGEST: u64 = 0x814e_54db_55ae_940b;
+const CORE_DIGEST: u64 = 0xb625_7b66_9986_6024;
 
 #[test]
 fn twice_in_process() {

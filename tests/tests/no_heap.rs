@@ -165,3 +165,118 @@ fn navigator_does_not_allocate() {
     assert_eq!(n, 0, "navigator allocated {n} times");
     assert!(finite);
 }
+
+#[test]
+fn tactile_pipeline_does_not_allocate() {
+    use nav_core::body::{Body, BodyConfig, ModuleSpec, SensorSpec};
+    use nav_core::frame::{Contact, HeadPose, JointAngles, SensorFrame};
+    use nav_core::tactile::ellipse::{direct_ellipse, geometric_ellipse};
+    use nav_core::tactile::fit::{
+        AlgebraicMethod, LmSettings, algebraic_circle, algebraic_circle_general,
+        angular_coverage_rad, geometric_circle,
+    };
+    use nav_core::tactile::{
+        OpeningReport, OpeningSettings, SectionSettings, TactileConfig, TactileMap, ThroatSettings,
+        fit_plane_section,
+    };
+    let (n, checksum) = allocations_during(|| {
+        let mut sum = 0.0;
+        let mut cfg = BodyConfig::<3, 24>::uniform(
+            3,
+            ModuleSpec {
+                length_m: 0.25,
+                radius_m: 0.05,
+            },
+        );
+        for m in 0..3u16 {
+            for j in 0..8u16 {
+                cfg.push_sensor(SensorSpec {
+                    module: m,
+                    axial_m: 0.12,
+                    angle_rad: f64::from(j) * 0.785,
+                });
+            }
+        }
+        let body = Body::new(cfg).expect("body");
+        let mut map = TactileMap::<128>::new(TactileConfig::default()).expect("map");
+        for k in 0..60u32 {
+            let roll = 0.41 * f64::from(k);
+            let mut f: SensorFrame<0, 2, 8> = SensorFrame::empty(0.1 * f64::from(k));
+            f.pose = Some(HeadPose {
+                position_m: [0.01 * f64::from(k), 0.2 * roll.cos(), 0.2 * roll.sin()],
+                orientation_wxyz: [(0.5 * roll).cos(), (0.5 * roll).sin(), 0.0, 0.0],
+                position_sigma_m: 0.001,
+                attitude_sigma_rad: 0.001,
+            });
+            f.joints = Some([JointAngles::default(); 2]);
+            for m in 0..3u16 {
+                f.push_contact(Contact {
+                    module: m,
+                    sensor: 0,
+                    force_n: 1.0,
+                    normal_module: Some([0.0, 1.0, 0.0]),
+                });
+            }
+            let r = map.ingest(&f, &body).expect("ingest");
+            sum += r.wall_points as f64;
+        }
+        // A rejected frame.
+        let bad: SensorFrame<0, 2, 8> = SensorFrame::empty(-1.0);
+        assert!(map.ingest(&bad, &body).is_err());
+        let pose = HeadPose {
+            position_m: [0.6, 0.0, 0.0],
+            orientation_wxyz: [1.0, 0.0, 0.0, 0.0],
+            position_sigma_m: 0.0,
+            attitude_sigma_rad: 0.0,
+        };
+        let poses = body
+            .module_poses(&pose, &[JointAngles::default(); 2])
+            .expect("poses");
+        let set = SectionSettings::default();
+        let st = [
+            body.station(&poses, 0.1).expect("station"),
+            body.station(&poses, 0.3).expect("station"),
+            body.station(&poses, 0.5).expect("station"),
+        ];
+        for s in &st {
+            let sec = map.section_at(s, &set);
+            sum += sec.plane.coverage_rad;
+            let o: OpeningReport<4> = map.openings(&sec, &set, &OpeningSettings::default());
+            sum += o.count as f64;
+        }
+        let th = map.throat(&st, &set, &ThroatSettings::default());
+        sum += th.slope;
+        // The plane fits directly.
+        let mut pts = [[0.0f64; 2]; 30];
+        for (i, p) in pts.iter_mut().enumerate() {
+            let t = 0.21 * i as f64;
+            *p = [0.5 * t.cos() + 0.001 * (3.0 * t).sin(), 0.4 * t.sin()];
+        }
+        for m in [
+            AlgebraicMethod::Kasa,
+            AlgebraicMethod::Pratt,
+            AlgebraicMethod::Hyper,
+        ] {
+            sum += algebraic_circle(&pts, m).expect("fit").circle.radius_m;
+            sum += algebraic_circle_general(&pts, m)
+                .expect("fit")
+                .circle
+                .radius_m;
+        }
+        let h = algebraic_circle(&pts, AlgebraicMethod::Hyper).expect("fit");
+        sum += geometric_circle(&pts, &h.circle, &LmSettings::default())
+            .expect("fit")
+            .circle
+            .radius_m;
+        sum += angular_coverage_rad(&pts, &h.circle.centre);
+        let e = direct_ellipse(&pts).expect("ellipse");
+        sum += geometric_ellipse(&pts, &e, &LmSettings::default())
+            .expect("ellipse")
+            .ellipse
+            .semi_minor_m;
+        sum += fit_plane_section(&pts, &set.fit).coverage_rad;
+        sum
+    });
+    assert_eq!(n, 0, "tactile pipeline allocated {n} times");
+    assert!(checksum.is_finite() && checksum > 0.0);
+}
