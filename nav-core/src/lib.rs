@@ -37,3 +37,4 @@ pub mod digest;
 pub mod frame;
 pub mod gas;
 pub mod num;
+pub mod probe;
