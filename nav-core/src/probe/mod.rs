@@ -140,11 +140,13 @@ pub enum ConfigError {
         /// The value given.
         value: f64,
     },
-    /// The incompressible Mach limit of the automatic regime choice must lie
-    /// in [0, 1).
-    IncompressibleMach {
-        /// The value given.
-        value: f64,
+    /// The automatic regime choice needs
+    /// `0 <= incompressible_below_mach < subsonic_up_to_mach < 1`.
+    RegimeMach {
+        /// The incompressible limit given.
+        incompressible_below_mach: f64,
+        /// The subsonic limit given.
+        subsonic_up_to_mach: f64,
     },
     /// The separation angle of a separated wake must lie in (pi/2, pi) rad.
     SeparationAngle {

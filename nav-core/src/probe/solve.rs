@@ -31,15 +31,26 @@
 //!   be isolated, when it is multiplied by the reduced chi-square
 //!   `chi2 / dof` (the residuals show the sigmas are too small). Delta-method sigmas for Mach, `q`
 //!   and speed.
-//! - Regime ([`RegimeChoice::Auto`]): fit with the sphere shape; if the
-//!   ratio `(p_s + A)/p_s` exceeds the isentropic `p0/p` at Mach 0.7, also
-//!   fit the Newtonian shape, and keep that when its ratio is supersonic
-//!   and its chi-square is lower. Below the
-//!   supersonic branch the regime is [`Regime::Incompressible`] when the
-//!   isentropic Mach is below `incompressible_below_mach` (0.3 by default,
-//!   common practice), else [`Regime::CompressibleSubsonic`]. Both subsonic
+//! - Regime ([`RegimeChoice::Auto`]): fit with the sphere shape. When its
+//!   isentropic Mach exceeds `subsonic_up_to_mach` (0.6 by default, about
+//!   the sphere's critical Mach number, beyond which the subsonic model is
+//!   not valid anyway), also fit the Newtonian shape, and take the flow as
+//!   supersonic when that fit's ratio `(p_s + A)/p_s` is at least the sonic
+//!   isentropic `p0/p` and its chi-square is not worse by one or more.
+//!   Otherwise the regime is [`Regime::Incompressible`] when the isentropic
+//!   Mach is below `incompressible_below_mach` (0.3 by default, common
+//!   practice), else [`Regime::CompressibleSubsonic`]. Both subsonic
 //!   regimes share the shape, so the fit is the same; they differ in how
 //!   `A` maps to `q` and Mach (`A = q`, or `A = p0 - p_s`).
+//!
+//!   A limit of the physics, not of the solver: while every port is
+//!   windward (`cos theta > 0`) the two shapes are affinely related,
+//!   `S_sphere = -5/4 + 9/4 S_newton`, so the port pressures of a subsonic
+//!   flow at Mach `M_sub` (about 0.59 to 0.95 for air) are exactly those
+//!   of a supersonic flow with a different static pressure. Only ports in
+//!   the Newtonian shadow, or outside knowledge of the static pressure,
+//!   can tell them apart; [`FlowSolution::regime_ambiguous`] says when the
+//!   two fits were indistinguishable (chi-squares within one).
 //! - Port faults: with `k` ports used and `k - 4 >= 1`, the chi-square is
 //!   compared with the upper quantile of the chi-square law with `k - 4`
 //!   degrees of freedom at [`SolverConfig::false_alarm_probability`]. A
@@ -79,6 +90,9 @@ pub enum RegimeChoice {
         /// Below this isentropic Mach number the flow counts as
         /// incompressible.
         incompressible_below_mach: f64,
+        /// Above this subsonic reading a supersonic reading of the same
+        /// pressures is preferred when it fits no worse.
+        subsonic_up_to_mach: f64,
     },
 }
 
@@ -114,6 +128,7 @@ impl Default for SolverConfig {
         Self {
             regime: RegimeChoice::Auto {
                 incompressible_below_mach: 0.3,
+                subsonic_up_to_mach: 0.6,
             },
             wake: WakeTreatment::Attached,
             max_iterations: 40,
@@ -151,10 +166,14 @@ impl SolverConfig {
         }
         if let RegimeChoice::Auto {
             incompressible_below_mach: m,
+            subsonic_up_to_mach: s,
         } = self.regime
-            && !(0.0..1.0).contains(&m)
+            && !((0.0..1.0).contains(&m) && s > m && s < 1.0)
         {
-            return Err(ConfigError::IncompressibleMach { value: m });
+            return Err(ConfigError::RegimeMach {
+                incompressible_below_mach: m,
+                subsonic_up_to_mach: s,
+            });
         }
         self.wake.check()
     }
@@ -310,6 +329,11 @@ pub struct FlowSolution {
     pub direction: Direction,
     /// Regime the solution settled in.
     pub regime: Regime,
+    /// The automatic regime choice fitted both a subsonic and a supersonic
+    /// reading and they fitted equally well (see the module notes): the
+    /// regime, static pressure and Mach rest on the configured limit, not
+    /// on the data. Always false for a fixed regime.
+    pub regime_ambiguous: bool,
     /// How the final fit ended.
     pub convergence: Convergence,
     /// Dynamic pressure `q = gamma/2 p_s M^2 = rho V^2 / 2`, Pa.
@@ -380,9 +404,8 @@ pub struct SolveOptions {
     pub start: Option<Start>,
 }
 
-/// Isentropic Mach above which [`RegimeChoice::Auto`] also fits the
-/// supersonic shape.
-const NEWTONIAN_TRIAL_MACH: f64 = 0.7;
+/// Chi-square difference below which two fits are indistinguishable.
+const CHI_SQUARE_TIE: f64 = 1.0;
 
 /// Initial relative damping (Marquardt scaling by the diagonal).
 const LAMBDA_START: f64 = 1e-3;
@@ -432,9 +455,9 @@ pub struct ProbeSolver<const N: usize> {
     thresholds: [f64; N],
     /// Sonic isentropic `p0/p` of the gas.
     sonic_ratio: f64,
-    /// `p0/p` at Mach 0.7: above it the automatic regime choice also tries
-    /// the supersonic shape.
-    newtonian_trial_ratio: f64,
+    /// `p0/p` at the automatic choice's subsonic limit: above it the
+    /// supersonic shape is tried too.
+    subsonic_limit_ratio: f64,
     /// Chi-square margin by which the isolated hypothesis must beat every
     /// other passing one (the 1-dof threshold).
     isolation_gap: f64,
@@ -488,7 +511,13 @@ impl<const N: usize> ProbeSolver<N> {
             w2,
             thresholds,
             sonic_ratio: gas.p0_over_p(1.0)?,
-            newtonian_trial_ratio: gas.p0_over_p(NEWTONIAN_TRIAL_MACH)?,
+            subsonic_limit_ratio: match config.regime {
+                RegimeChoice::Auto {
+                    subsonic_up_to_mach,
+                    ..
+                } => gas.p0_over_p(subsonic_up_to_mach)?,
+                RegimeChoice::Fixed(_) => f64::INFINITY,
+            },
             isolation_gap: chi_square_quantile_upper(1, config.false_alarm_probability)
                 .map_err(ConfigError::ChiSquare)?,
         })
@@ -611,35 +640,37 @@ impl<const N: usize> ProbeSolver<N> {
 
         // Regime and first fit.
         let sphere = Shape::for_regime(Regime::Incompressible, self.config.wake);
-        let (fit, regime_kind) = match self.config.regime {
+        let (fit, regime_kind, ambiguous) = match self.config.regime {
             RegimeChoice::Fixed(r) => {
                 let shape = Shape::for_regime(r, self.config.wake);
-                (self.lm(&prep, &w2, shape, d0)?, Some(r))
+                (self.lm(&prep, &w2, shape, d0)?, Some(r), false)
             }
             RegimeChoice::Auto { .. } => {
                 let fs = self.lm(&prep, &w2, sphere, d0)?;
                 let ratio = 1.0 + fs.a / (fs.ps_rel + prep.p_ref);
-                // A sphere-shape fit of supersonic data reads low, so the
-                // Newtonian shape is tried from well below the sonic ratio.
-                if ratio > self.newtonian_trial_ratio {
+                if ratio > self.subsonic_limit_ratio {
                     match self.lm(&prep, &w2, Shape::Newtonian, fs.d) {
-                        Ok(fnw)
-                            if 1.0 + fnw.a / (fnw.ps_rel + prep.p_ref) >= self.sonic_ratio
-                                && fnw.lin.chi2 < fs.lin.chi2 =>
-                        {
-                            (fnw, Some(Regime::Supersonic))
+                        Ok(fnw) if 1.0 + fnw.a / (fnw.ps_rel + prep.p_ref) >= self.sonic_ratio => {
+                            let tie = libm::fabs(fnw.lin.chi2 - fs.lin.chi2) < CHI_SQUARE_TIE;
+                            if fnw.lin.chi2 < fs.lin.chi2 + CHI_SQUARE_TIE {
+                                (fnw, Some(Regime::Supersonic), tie)
+                            } else {
+                                (fs, None, tie)
+                            }
                         }
-                        _ => (fs, None),
+                        _ => (fs, None, false),
                     }
                 } else {
-                    (fs, None)
+                    (fs, None, false)
                 }
             }
         };
 
         // Port-consistency test and isolation.
         let (fit, mask, fault) = self.fault_test(&prep, mask, fit)?;
-        self.finish(&prep, mask, fit, regime_kind, fault, total_temperature_k)
+        let mut sol = self.finish(&prep, mask, fit, regime_kind, fault, total_temperature_k)?;
+        sol.regime_ambiguous = ambiguous;
+        Ok(sol)
     }
 
     fn prepare(&self, pressures_pa: &[f64; N], mask: PortSet) -> Result<Prepared<N>, ProbeError> {
@@ -997,6 +1028,7 @@ impl<const N: usize> ProbeSolver<N> {
                 None,
                 RegimeChoice::Auto {
                     incompressible_below_mach,
+                    ..
                 },
             ) => {
                 let m = if ratio > 1.0 {
@@ -1145,6 +1177,7 @@ impl<const N: usize> ProbeSolver<N> {
         Ok(FlowSolution {
             direction,
             regime,
+            regime_ambiguous: false,
             convergence: fit.convergence,
             dynamic_pressure_pa: q,
             static_pressure_pa: ps,
@@ -1219,7 +1252,7 @@ mod tests {
             (Regime::Incompressible, 0.1, 35.0, 200.0),
             (Regime::Incompressible, 0.2, 62.0, 17.0),
             (Regime::CompressibleSubsonic, 0.5, 25.0, 100.0),
-            (Regime::CompressibleSubsonic, 0.6, 10.0, 300.0),
+            (Regime::CompressibleSubsonic, 0.55, 10.0, 300.0),
             (Regime::Supersonic, 1.5, 15.0, 45.0),
             (Regime::Supersonic, 2.5, 30.0, 250.0),
         ];
@@ -1662,6 +1695,57 @@ mod tests {
         assert!((rp - 1.0).abs() < 0.12, "ps {rp}");
         // False-alarm rate 1e-3 configured: expect ~2 in 2000, allow 10.
         assert!(false_alarms <= 10, "{false_alarms} false alarms");
+    }
+
+    /// With every port windward, S_sphere = -5/4 + 9/4 S_newton: a
+    /// supersonic flow's pressures are also those of a subsonic flow at
+    /// another static pressure. The solution says so. With ports in the
+    /// Newtonian shadow (flow 60 deg off axis, the far ring port at 100 deg)
+    /// the shapes differ and the choice is made by the data.
+    #[test]
+    fn regime_ambiguity_is_reported() {
+        let solver = ProbeSolver::new(seven(20.0), AIR, SolverConfig::default()).unwrap();
+        let flow = FlowCondition {
+            velocity_unit: vel(20.0, 30.0),
+            static_pressure_pa: 20_000.0,
+            mach: 1.8,
+        };
+        let p = solver
+            .model()
+            .port_pressures(Regime::Supersonic, &flow)
+            .unwrap();
+        let sol = solver.solve(&p, None).unwrap();
+        assert_eq!(sol.regime, Regime::Supersonic);
+        assert!(sol.regime_ambiguous);
+        // The subsonic reading fits exactly as well.
+        let sub = ProbeSolver::new(
+            seven(20.0),
+            AIR,
+            SolverConfig {
+                regime: RegimeChoice::Fixed(Regime::CompressibleSubsonic),
+                ..SolverConfig::default()
+            },
+        )
+        .unwrap()
+        .solve(&p, None)
+        .unwrap();
+        assert!(sub.chi_square < 1e-12 && sub.mach < 1.0 && sub.mach > 0.59);
+        assert!((sub.static_pressure_pa - 20_000.0).abs() > 1000.0);
+
+        let flow = FlowCondition {
+            velocity_unit: vel(60.0, 0.0),
+            ..flow
+        };
+        let p = solver
+            .model()
+            .port_pressures(Regime::Supersonic, &flow)
+            .unwrap();
+        let sol = solver.solve(&p, None).unwrap();
+        assert_eq!(sol.regime, Regime::Supersonic);
+        assert!(!sol.regime_ambiguous);
+        assert!((sol.mach - 1.8).abs() < 1e-6);
+        // A fixed regime never claims ambiguity.
+        assert!(!sub.regime_ambiguous);
     }
 
     #[test]
