@@ -13,7 +13,7 @@ use std::process::Command;
 /// `libm_digest()` as committed.
 const LIBM_DIGEST: u64 = 0x9a68_5bd4_cbd2_b230;
 /// `core_workload_digest()` as committed.
-const CORE_DIGEST: u64 = 0x208f_3d10_55e9_5295;
+const CORE_DIGEST: u64 = 0xa9ef_b5d8_5820_edaa;
 
 #[test]
 fn twice_in_process() {

@@ -16,9 +16,14 @@
 //! `Vector4`), no heap. For Gaussian port noise this least-squares minimum
 //! is the maximum-likelihood estimate.
 //!
-//! - Start (deterministic): `d0` is the pressure-weighted mean of the port
-//!   normals, weights `(y_i - min y)^2`, so the highest-pressure ports (the
-//!   windward sector) dominate; `p_s` and `A` then follow in closed form
+//! - Start (deterministic): the pressure-weighted mean of the port normals,
+//!   weights `(y_i - min y)^2`, so the highest-pressure ports (the windward
+//!   sector) dominate; on layouts that determine it (6 or more ports, all
+//!   used) this is refined by the quadratic form of the pressures (both
+//!   shapes are `a + b (n . d)^2` while the ports are windward, so `d` is
+//!   the form's dominant eigenvector). If the fit from the refined start
+//!   fails the port test or does not converge, the plain weighted mean is
+//!   tried too and the better fit kept. `p_s` and `A` follow in closed form
 //!   (they enter linearly). A caller may pass its own start
 //!   ([`SolveOptions::start`]), e.g. the previous frame's direction.
 //! - Stop: when the Gauss-Newton step would lower the chi-square by less
@@ -72,7 +77,28 @@
 //!   pressures of `d` and `-d` are identical; the solver reports the
 //!   windward one (`d . x >= 0`), see [`super::model`] on the wake.
 
-use nalgebra::{Matrix2, Matrix3, Matrix3x2, Matrix4, Vector2, Vector3, Vector4};
+//!
+//! # Limits worth knowing
+//! - A fault is visible only through the part of its error that the four
+//!   unknowns cannot absorb. Near head-on flow the ring ports all see one
+//!   shape value, so the tip port's column of the model and the pair
+//!   `(p_s, A)` span the same space: a tip-port offset then moves `q` and
+//!   `p_s` and leaves no residual. On a 5-port head the single residual
+//!   degree of freedom absorbs most single-port errors; the
+//!   `probe_accuracy` example shows how often a blocked port goes
+//!   unnoticed there.
+//! - The covariance is the Cramer-Rao bound of the model at the estimate;
+//!   it says nothing about model error (a real head is not a potential-flow
+//!   sphere: calibrate, see [`super::calib`]).
+//!
+//! # Cost
+//! One solve of a 7-port head takes a few Levenberg-Marquardt iterations
+//! (about five at 1 % noise, including the final convergence check), each
+//! one pass over the ports and a written-out 4x4 Cholesky; the working
+//! state is on the stack ([`ProbeSolver::fit_state_bytes`]). A failed
+//! port test on a 7-port head adds one re-solve per port.
+
+use nalgebra::{Matrix2, Matrix3, Matrix3x2, Matrix4, SMatrix, SVector, Vector2, Vector3, Vector4};
 
 use super::chi2::chi_square_quantile_upper;
 use super::layout::{MIN_PORTS, PortSet, ProbeLayout, small};
@@ -412,14 +438,16 @@ const LAMBDA_START: f64 = 1e-3;
 /// Relative damping beyond which no step can help.
 const LAMBDA_MAX: f64 = 1e16;
 
-/// Relative size of rounding in the chi-square (pressures are fitted
-/// relative to their mean, so residuals keep about 13 digits).
-const ROUNDING_REL: f64 = 1e-13;
+/// Safety factor on the first-order rounding bound of the chi-square
+/// (`2 eps sum w |r| (|y| + |p_s| + |A S|)`, doubled).
+const ROUNDING_ULPS: f64 = 4.0;
 
 /// The state of one Levenberg-Marquardt linearisation.
 #[derive(Debug, Clone, Copy, PartialEq)]
 struct Lin {
     chi2: f64,
+    /// Size of the rounding error in `chi2` (a bound, in chi-square units).
+    rounding: f64,
     h: Matrix4<f64>,
     b: Vector4<f64>,
     e1: Vector3<f64>,
@@ -461,6 +489,123 @@ pub struct ProbeSolver<const N: usize> {
     /// Chi-square margin by which the isolated hypothesis must beat every
     /// other passing one (the 1-dof threshold).
     isolation_gap: f64,
+    /// Weighted least-squares map from the (all-port) pressures to the
+    /// quadratic form `M` with `p_i ~ n_i^T M n_i` (six entries), when the
+    /// layout determines it (6 or more ports, e.g. the 7-port head).
+    quadratic_map: Option<SMatrix<f64, 6, N>>,
+}
+
+/// Power-iteration steps of the quadratic-form start.
+const POWER_STEPS: usize = 6;
+
+/// The weighted least-squares map `y -> (M11, M22, M33, M12, M13, M23)` of
+/// `y_i = n_i^T M n_i` over all ports, if the layout determines `M` (the
+/// isotropic part absorbs the constant, since `n^T I n = 1`).
+fn quadratic_map<const N: usize>(
+    normals: &[Vector3<f64>; N],
+    w2: &[f64; N],
+) -> Option<SMatrix<f64, 6, N>> {
+    let row = |n: &Vector3<f64>| {
+        SVector::<f64, 6>::from([
+            n.x * n.x,
+            n.y * n.y,
+            n.z * n.z,
+            2.0 * n.x * n.y,
+            2.0 * n.x * n.z,
+            2.0 * n.y * n.z,
+        ])
+    };
+    let mut a = SMatrix::<f64, 6, 6>::zeros();
+    for (n, &w) in normals.iter().zip(w2.iter()) {
+        let r = row(n);
+        a.ger(w, &r, &r, 1.0);
+    }
+    let scale = a.diagonal().max();
+    let ch = a.cholesky()?;
+    let l = ch.l_dirty().diagonal().min();
+    if !(scale > 0.0 && l * l > 1e-9 * scale) {
+        return None;
+    }
+    let mut map = SMatrix::<f64, 6, N>::zeros();
+    for (mut col, (n, &w)) in map.column_iter_mut().zip(normals.iter().zip(w2.iter())) {
+        col.copy_from(&(ch.solve(&row(n)) * w));
+    }
+    Some(map)
+}
+
+/// Cholesky factor `L` (lower) of a symmetric positive-definite 4x4
+/// matrix, written out: the solver's hot path, where nalgebra's generic
+/// decomposition costs several times more.
+#[derive(Debug, Clone, Copy)]
+struct Chol4 {
+    l11: f64,
+    l21: f64,
+    l31: f64,
+    l41: f64,
+    l22: f64,
+    l32: f64,
+    l42: f64,
+    l33: f64,
+    l43: f64,
+    l44: f64,
+}
+
+impl Chol4 {
+    /// `None` unless every pivot is positive and finite.
+    #[inline]
+    fn new(a: &Matrix4<f64>) -> Option<Self> {
+        let piv = |x: f64| {
+            if x > 0.0 && x.is_finite() {
+                Some(libm::sqrt(x))
+            } else {
+                None
+            }
+        };
+        let l11 = piv(a.m11)?;
+        let (l21, l31, l41) = (a.m21 / l11, a.m31 / l11, a.m41 / l11);
+        let l22 = piv(a.m22 - l21 * l21)?;
+        let l32 = (a.m32 - l31 * l21) / l22;
+        let l42 = (a.m42 - l41 * l21) / l22;
+        let l33 = piv(a.m33 - l31 * l31 - l32 * l32)?;
+        let l43 = (a.m43 - l41 * l31 - l42 * l32) / l33;
+        let l44 = piv(a.m44 - l41 * l41 - l42 * l42 - l43 * l43)?;
+        Some(Self {
+            l11,
+            l21,
+            l31,
+            l41,
+            l22,
+            l32,
+            l42,
+            l33,
+            l43,
+            l44,
+        })
+    }
+
+    /// `x` with `L L^T x = b`.
+    #[inline]
+    fn solve(&self, b: &Vector4<f64>) -> Vector4<f64> {
+        let y1 = b.x / self.l11;
+        let y2 = (b.y - self.l21 * y1) / self.l22;
+        let y3 = (b.z - self.l31 * y1 - self.l32 * y2) / self.l33;
+        let y4 = (b.w - self.l41 * y1 - self.l42 * y2 - self.l43 * y3) / self.l44;
+        let x4 = y4 / self.l44;
+        let x3 = (y3 - self.l43 * x4) / self.l33;
+        let x2 = (y2 - self.l32 * x3 - self.l42 * x4) / self.l22;
+        let x1 = (y1 - self.l21 * x2 - self.l31 * x3 - self.l41 * x4) / self.l11;
+        Vector4::new(x1, x2, x3, x4)
+    }
+
+    /// The inverse of the factored matrix.
+    fn inverse(&self) -> Matrix4<f64> {
+        Matrix4::from_columns(&[
+            self.solve(&Vector4::new(1.0, 0.0, 0.0, 0.0)),
+            self.solve(&Vector4::new(0.0, 1.0, 0.0, 0.0)),
+            self.solve(&Vector4::new(0.0, 0.0, 1.0, 0.0)),
+            self.solve(&Vector4::new(0.0, 0.0, 0.0, 1.0)),
+        ])
+    }
 }
 
 /// Tangent basis at `d`: deterministic, `(y, z)` for `d = +x`.
@@ -505,11 +650,13 @@ impl<const N: usize> ProbeSolver<N> {
                     .map_err(ConfigError::ChiSquare)?;
             }
         }
+        let quadratic_map = quadratic_map(layout.normals(), &w2);
         Ok(Self {
             model,
             config,
             w2,
             thresholds,
+            quadratic_map,
             sonic_ratio: gas.p0_over_p(1.0)?,
             subsonic_limit_ratio: match config.regime {
                 RegimeChoice::Auto {
@@ -626,16 +773,54 @@ impl<const N: usize> ProbeSolver<N> {
             .into());
         }
         let w2 = self.masked_weights(mask);
-        let d0 = match options.start {
+        // Starts: the caller's, else the quadratic-form refinement of the
+        // pressure-weighted mean (all ports) with the plain weighted mean as
+        // the alternative when the first fit looks wrong.
+        let (d0, d_alt) = match options.start {
             Some(s) => {
                 let v = Vector3::new(s.velocity_unit[0], s.velocity_unit[1], s.velocity_unit[2]);
                 let n = v.norm();
                 if !(n.is_finite() && libm::fabs(n - 1.0) < 1e-6) {
                     return Err(InputError::Start.into());
                 }
-                -v / n
+                (-v / n, None)
             }
-            None => self.initial_direction(&prep.y, &w2),
+            None => {
+                let d = self.initial_direction(&prep.y, &w2);
+                if mask == all && self.quadratic_map.is_some() {
+                    (self.quadratic_direction(&prep.y, d), Some(d))
+                } else {
+                    (d, None)
+                }
+            }
+        };
+        let used_dof = usize::try_from(used).unwrap_or(0).saturating_sub(MIN_PORTS);
+        let suspicious = |f: &Fit| {
+            !f.convergence.converged()
+                || self
+                    .chi_square_threshold(used_dof)
+                    .is_some_and(|t| f.lin.chi2 > t)
+        };
+        // A fit with a positive amplitude beats one without (a negative
+        // amplitude is an inverted, unphysical pattern); then the lower
+        // chi-square wins.
+        let better = |g: &Fit, f: &Fit| {
+            g.convergence.converged()
+                && ((g.a > 0.0 && f.a <= 0.0)
+                    || ((g.a > 0.0) == (f.a > 0.0)
+                        && (g.lin.chi2 < f.lin.chi2 || !f.convergence.converged())))
+        };
+        let fit_from = |shape: Shape, d: Vector3<f64>| -> Result<Fit, ProbeError> {
+            let f = self.lm(&prep, &w2, shape, d)?;
+            match d_alt {
+                Some(alt) if suspicious(&f) || f.a <= 0.0 => {
+                    match self.lm(&prep, &w2, shape, alt) {
+                        Ok(g) if better(&g, &f) => Ok(g),
+                        _ => Ok(f),
+                    }
+                }
+                _ => Ok(f),
+            }
         };
 
         // Regime and first fit.
@@ -643,10 +828,10 @@ impl<const N: usize> ProbeSolver<N> {
         let (fit, regime_kind, ambiguous) = match self.config.regime {
             RegimeChoice::Fixed(r) => {
                 let shape = Shape::for_regime(r, self.config.wake);
-                (self.lm(&prep, &w2, shape, d0)?, Some(r), false)
+                (fit_from(shape, d0)?, Some(r), false)
             }
             RegimeChoice::Auto { .. } => {
-                let fs = self.lm(&prep, &w2, sphere, d0)?;
+                let fs = fit_from(sphere, d0)?;
                 let ratio = 1.0 + fs.a / (fs.ps_rel + prep.p_ref);
                 if ratio > self.subsonic_limit_ratio {
                     match self.lm(&prep, &w2, Shape::Newtonian, fs.d) {
@@ -747,6 +932,46 @@ impl<const N: usize> ProbeSolver<N> {
         }
     }
 
+    /// Refine a start with the quadratic form of the pressures: both the
+    /// sphere and (all ports windward) the Newtonian shape give
+    /// `p_i = a + b (n_i . d)^2 = n_i^T (b d d^T + a I) n_i`, so `d` is the
+    /// eigenvector of the largest eigenvalue of the traceless part of the
+    /// fitted form. Power iteration from `d0`: two steps shifted by the
+    /// form's Frobenius norm (so the most positive eigenvalue wins), then
+    /// steps shifted by half the Rayleigh quotient (for exact data the
+    /// other two eigenvalues are then zero).
+    fn quadratic_direction(&self, y: &[f64; N], d0: Vector3<f64>) -> Vector3<f64> {
+        let Some(map) = &self.quadratic_map else {
+            return d0;
+        };
+        let m = map * SVector::<f64, N>::from(*y);
+        let (m11, m22, m33, m12, m13, m23) = (m.x, m.y, m.z, m.w, m.a, m.b);
+        let t = (m11 + m22 + m33) / 3.0;
+        let q = Matrix3::new(m11 - t, m12, m13, m12, m22 - t, m23, m13, m23, m33 - t);
+        // First steps shifted by the Frobenius norm (>= every |eigenvalue|)
+        // so that the most POSITIVE eigenvalue dominates: a negative one
+        // would be an inverted (unphysical, A < 0) pattern.
+        let frob = libm::sqrt(q.norm_squared());
+        let mut shifted = q + Matrix3::from_diagonal_element(frob);
+        let mut v = d0;
+        for step in 0..POWER_STEPS {
+            if step == 2 {
+                let rayleigh = v.dot(&(q * v));
+                if rayleigh.is_nan() || rayleigh <= 0.0 {
+                    return d0;
+                }
+                shifted = q + Matrix3::from_diagonal_element(0.5 * rayleigh);
+            }
+            let w = shifted * v;
+            let len = libm::sqrt(w.norm_squared());
+            if !(len > 0.0 && len.is_finite()) {
+                return d0;
+            }
+            v = w / len;
+        }
+        if v.dot(&d0) < 0.0 { -v } else { v }
+    }
+
     /// Closed-form `(p_s, A)` at direction `d`; `None` when the shape is
     /// the same at every used port (the two cannot be separated there).
     fn linear_fit(
@@ -796,6 +1021,7 @@ impl<const N: usize> ProbeSolver<N> {
         let mut h = Matrix4::zeros();
         let mut b = Vector4::zeros();
         let mut chi2 = 0.0;
+        let mut rounding = 0.0;
         for ((n, &yi), &wi) in self
             .model
             .layout()
@@ -814,8 +1040,16 @@ impl<const N: usize> ProbeSolver<N> {
             h.ger(wi, &j, &j, 1.0);
             b.axpy(wi * r, &j, 1.0);
             chi2 += wi * r * r;
+            rounding += wi * libm::fabs(r) * (libm::fabs(yi) + libm::fabs(ps) + libm::fabs(a * s));
         }
-        Lin { chi2, h, b, e1, e2 }
+        Lin {
+            chi2,
+            rounding: ROUNDING_ULPS * f64::EPSILON * rounding,
+            h,
+            b,
+            e1,
+            e2,
+        }
     }
 
     /// One Levenberg-Marquardt run from direction `d0`.
@@ -849,7 +1083,7 @@ impl<const N: usize> ProbeSolver<N> {
         for it in 1..=max_it {
             let dg = lin.h.diagonal().map(|v| if v > floor { v } else { floor });
             let m = lin.h + Matrix4::from_diagonal(&(dg * lambda));
-            let Some(ch) = m.cholesky() else {
+            let Some(ch) = Chol4::new(&m) else {
                 lambda *= nu;
                 nu *= 2.0;
                 continue;
@@ -860,16 +1094,19 @@ impl<const N: usize> ProbeSolver<N> {
                 convergence = Convergence::Stalled { iterations: it };
                 break;
             }
-            // Below about 1e-13 of the chi-square, changes are rounding.
-            let tol_eff = tol.max(ROUNDING_REL * lin.chi2);
+            // Changes below the rounding error of the chi-square cannot be
+            // seen, so they cannot be asked for.
+            let tol_eff = tol.max(lin.rounding);
             if predicted <= tol_eff {
                 // Small because of heavy damping, or because the minimum is
                 // reached? Check the undamped step.
                 let gn = if lambda <= 1e-6 {
                     predicted
                 } else {
-                    lin.h
-                        .cholesky()
+                    // Undamped, or barely damped where the information is
+                    // singular (no flow: the direction is not determined).
+                    Chol4::new(&lin.h)
+                        .or_else(|| Chol4::new(&(lin.h + Matrix4::from_diagonal(&(dg * 1e-9)))))
                         .map_or(f64::INFINITY, |c| c.solve(&lin.b).dot(&lin.b))
                 };
                 if gn <= tol_eff {
@@ -1098,7 +1335,7 @@ impl<const N: usize> ProbeSolver<N> {
             }
             _ => 1.0,
         };
-        let covariance = fit.lin.h.cholesky().map(|c| c.inverse() * inflate);
+        let covariance = Chol4::new(&fit.lin.h).map(|c| c.inverse() * inflate);
         let lin_cov = match covariance {
             Some(c) => Matrix2::new(c.m33, c.m34, c.m43, c.m44),
             None => {
@@ -1148,13 +1385,13 @@ impl<const N: usize> ProbeSolver<N> {
         };
         let threshold_pa = self.config.low_flow_multiple * noise_floor;
         let off_axis = libm::acos(fit.d.x.clamp(-1.0, 1.0));
-        let direction = if a.is_nan() || a < threshold_pa {
+        let direction = if !fit.convergence.converged() {
+            Direction::Invalid(DirectionInvalid::NotConverged)
+        } else if a.is_nan() || a < threshold_pa {
             Direction::Invalid(DirectionInvalid::LowFlow {
                 amplitude_pa: a,
                 threshold_pa,
             })
-        } else if !fit.convergence.converged() {
-            Direction::Invalid(DirectionInvalid::NotConverged)
         } else if let Some(c) = covariance {
             if off_axis > self.config.usable_cone_rad {
                 Direction::Invalid(DirectionInvalid::OutsideUsableCone {
@@ -1749,6 +1986,20 @@ mod tests {
     }
 
     #[test]
+    fn hand_written_cholesky_matches_nalgebra() {
+        let m = Matrix4::new(
+            4.0, 1.0, 0.5, -0.2, 1.0, 3.0, 0.3, 0.1, 0.5, 0.3, 2.0, 0.4, -0.2, 0.1, 0.4, 1.5,
+        );
+        let b = Vector4::new(1.0, -2.0, 0.5, 3.0);
+        let ours = Chol4::new(&m).unwrap();
+        let theirs = m.cholesky().unwrap();
+        assert!((ours.solve(&b) - theirs.solve(&b)).norm() < 1e-14);
+        assert!((ours.inverse() - theirs.inverse()).norm() < 1e-14);
+        let singular = Matrix4::from_diagonal(&Vector4::new(1.0, 1.0, 0.0, 1.0));
+        assert!(Chol4::new(&singular).is_none());
+    }
+
+    #[test]
     fn iteration_cap_is_reported() {
         let solver = ProbeSolver::new(
             seven(1.0),
@@ -1765,7 +2016,14 @@ mod tests {
             .model()
             .port_pressures(Regime::Incompressible, &flow)
             .unwrap();
-        let sol = solver.solve(&p, None).unwrap();
+        // Started far off (the default start is exact for clean data).
+        let opts = SolveOptions {
+            excluded: PortSet::EMPTY,
+            start: Some(Start {
+                velocity_unit: vel(10.0, 250.0),
+            }),
+        };
+        let sol = solver.solve_with(&p, None, &opts).unwrap();
         assert_eq!(sol.convergence, Convergence::IterationCap { iterations: 1 });
         assert_eq!(
             sol.direction,
