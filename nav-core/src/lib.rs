@@ -42,4 +42,5 @@ pub mod health;
 pub mod map;
 pub mod navigator;
 pub mod num;
+pub mod probe;
 pub mod tactile;

@@ -124,6 +124,7 @@ pub fn core_workload_digest() -> u64 {
     }
     navigator_workload(&mut d);
     tactile_workload(&mut d);
+    probe_workload(&mut d);
     d.finish()
 }
 
@@ -281,4 +282,87 @@ pub fn tactile_workload(d: &mut Fnv64) {
     }
     let th = map.throat(&list, &set, &ThroatSettings::default());
     d.f64s(&[th.slope, th.min_clear_diameter_m.unwrap_or(-1.0)]);
+}
+
+/// Probe inversions: both presets, every regime, a leaking port, a
+/// fixed pseudo-noise pattern (no RNG: offsets from `libm::sin`).
+pub fn probe_workload(d: &mut Fnv64) {
+    use nav_core::probe::{
+        Direction, FaultReport, FlowCondition, ProbeLayout, ProbeSolver, Regime, SolverConfig, deg,
+    };
+    let gas = IdealGas::DRY_AIR;
+    let (Ok(seven), Ok(five)) = (
+        ProbeLayout::seven_port(deg(40.0), 5.0),
+        ProbeLayout::five_port(deg(45.0), 5.0),
+    ) else {
+        d.u64(u64::MAX);
+        return;
+    };
+    let (Ok(s7), Ok(s5)) = (
+        ProbeSolver::new(seven, gas, SolverConfig::default()),
+        ProbeSolver::new(five, gas, SolverConfig::default()),
+    ) else {
+        d.u64(u64::MAX);
+        return;
+    };
+    let put = |d: &mut Fnv64, r: Result<nav_core::probe::FlowSolution, _>| match r {
+        Ok(sol) => {
+            if let Direction::Valid { velocity_unit, .. } = sol.direction {
+                d.f64s(velocity_unit.as_slice());
+            } else {
+                d.u64(1);
+            }
+            d.f64(sol.static_pressure_pa);
+            d.f64(sol.dynamic_pressure_pa);
+            d.f64(sol.mach);
+            d.f64(sol.sigma.angle_rad);
+            d.f64(sol.chi_square);
+            d.u64(u64::from(sol.convergence.iterations()));
+            d.u64(match sol.fault {
+                FaultReport::NotTestable => 10,
+                FaultReport::Consistent { .. } => 11,
+                FaultReport::Isolated { port, .. } => 100 + port as u64,
+                FaultReport::DetectedNotIsolated { .. } => 12,
+            });
+            if let Some(v) = sol.speed_m_per_s {
+                d.f64(v);
+            }
+        }
+        Err(_) => d.u64(u64::MAX - 1),
+    };
+    for i in 0..24u32 {
+        let k = f64::from(i);
+        let theta = deg(2.5 * k);
+        let phi = deg(37.0 * k);
+        let v = [
+            -libm::cos(theta),
+            -libm::sin(theta) * libm::cos(phi),
+            -libm::sin(theta) * libm::sin(phi),
+        ];
+        let (regime, mach, ps) = match i % 3 {
+            0 => (Regime::Incompressible, 0.08, 101_325.0),
+            1 => (Regime::CompressibleSubsonic, 0.45, 60_000.0),
+            _ => (Regime::Supersonic, 1.9, 20_000.0),
+        };
+        let flow = FlowCondition {
+            velocity_unit: v,
+            static_pressure_pa: ps,
+            mach,
+        };
+        if let Ok(mut p) = s7.model().port_pressures(regime, &flow) {
+            for (j, x) in (0u32..).zip(p.iter_mut()) {
+                *x += 5.0 * libm::sin(f64::from(7 * i + 3 * j) * 1.3);
+            }
+            if i % 4 == 1 {
+                p[(i % 7) as usize] += 400.0; // a leak
+            }
+            put(d, s7.solve(&p, Some(300.0)));
+        }
+        if let Ok(mut p) = s5.model().port_pressures(regime, &flow) {
+            for (j, x) in (0u32..).zip(p.iter_mut()) {
+                *x += 5.0 * libm::sin(f64::from(5 * i + 2 * j) * 0.7);
+            }
+            put(d, s5.solve(&p, None));
+        }
+    }
 }

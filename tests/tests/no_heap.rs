@@ -280,3 +280,88 @@ fn tactile_pipeline_does_not_allocate() {
     assert_eq!(n, 0, "tactile pipeline allocated {n} times");
     assert!(checksum.is_finite() && checksum > 0.0);
 }
+
+#[test]
+fn probe_does_not_allocate() {
+    use nav_core::gas::IdealGas;
+    use nav_core::probe::calib::{CalSample, CalScheme, CalTable, build_table};
+    use nav_core::probe::chi2::chi_square_quantile_upper;
+    use nav_core::probe::{
+        FlowCondition, PortSet, ProbeLayout, ProbeSolver, Regime, SolveOptions, SolverConfig,
+        Start, deg,
+    };
+    let gas = IdealGas::DRY_AIR;
+    // Calibration table built (with std, allocating) outside the check.
+    let layout7 = ProbeLayout::seven_port(deg(40.0), 5.0).unwrap();
+    let model = ProbeSolver::new(layout7, gas, SolverConfig::default()).unwrap();
+    let mut sweep = Vec::new();
+    for i in 0..=20u32 {
+        let t = deg(3.0 * f64::from(i));
+        let steps = if i == 0 {
+            1
+        } else {
+            (120.0 * t.sin()).ceil() as u32
+        };
+        for j in 0..steps {
+            let ph = 2.0 * std::f64::consts::PI * f64::from(j) / f64::from(steps);
+            let v = [-t.cos(), -t.sin() * ph.cos(), -t.sin() * ph.sin()];
+            let f = FlowCondition::from_dynamic_pressure(&gas, v, 1e5, 500.0).unwrap();
+            let p = model
+                .model()
+                .port_pressures(Regime::Incompressible, &f)
+                .unwrap();
+            sweep.push(CalSample {
+                velocity_unit: v,
+                total_pressure_pa: 1e5 + 500.0,
+                static_pressure_pa: 1e5,
+                pressures_pa: p,
+            });
+        }
+    }
+    let table = build_table(CalScheme::SevenHoleGallington, &sweep).unwrap();
+
+    let (n, ok) = allocations_during(|| {
+        let s7 = ProbeSolver::new(layout7, gas, SolverConfig::default()).unwrap();
+        let layout5 = ProbeLayout::five_port(deg(45.0), 5.0).unwrap();
+        let s5 = ProbeSolver::new(layout5, gas, SolverConfig::default()).unwrap();
+        let v = [-0.9, -0.3, -(1.0f64 - 0.81 - 0.09).sqrt()];
+        let f = FlowCondition::from_dynamic_pressure(&gas, v, 101_325.0, 500.0).unwrap();
+        let mut p7 = s7
+            .model()
+            .port_pressures(Regime::Incompressible, &f)
+            .unwrap();
+        let p5 = s5
+            .model()
+            .port_pressures(Regime::Incompressible, &f)
+            .unwrap();
+        let a = s7.solve(&p7, Some(293.0)).is_ok();
+        let b = s5.solve(&p5, Some(293.0)).is_ok();
+        p7[3] += 300.0; // leak: chi-square test and leave-one-out isolation
+        let c = s7.solve(&p7, None).is_ok();
+        let opts = SolveOptions {
+            excluded: PortSet::EMPTY.with(3),
+            start: Some(Start { velocity_unit: v }),
+        };
+        let d = s7.solve_with(&p7, None, &opts).is_ok();
+        let e = s7.solve_slice(&[1e5; 3], None).is_err();
+        let sup = FlowCondition {
+            velocity_unit: v,
+            static_pressure_pa: 2e4,
+            mach: 2.0,
+        };
+        let ps = s7.model().port_pressures(Regime::Supersonic, &sup).unwrap();
+        let g = s7.solve(&ps, Some(400.0)).is_ok();
+        let t = CalTable::new(CalScheme::SevenHoleGallington, &table).unwrap();
+        let h = t
+            .evaluate(
+                &s7.model()
+                    .port_pressures(Regime::Incompressible, &f)
+                    .unwrap(),
+            )
+            .is_ok();
+        let k = chi_square_quantile_upper(3, 1e-3).is_ok();
+        a && b && c && d && e && g && h && k
+    });
+    assert_eq!(n, 0, "probe allocated {n} times");
+    assert!(ok);
+}
