@@ -42,5 +42,6 @@ pub mod health;
 pub mod map;
 pub mod navigator;
 pub mod num;
+pub mod onboard;
 pub mod probe;
 pub mod tactile;

@@ -1,0 +1,549 @@
+//! The embedding entry point: one sensor frame in, one command out.
+//!
+//! [`FrameNavigator`] owns every stage of the core and runs them in order
+//! each step:
+//!
+//! 1. **probe**: port pressures → [`crate::probe::FlowSolution`] (probe
+//!    frame) → rotated into the map frame with the head pose;
+//! 2. **tactile**: contacts → wall points ([`crate::tactile::TactileMap`]),
+//!    and on a fixed cadence the cross-section at the head, the throat
+//!    trend along the body and the openings around the head;
+//! 3. **decision**: both observations → [`crate::navigator::Navigator`]
+//!    (local map, health, follow / branch / back-out / hold) →
+//!    [`Command`].
+//!
+//! Each stage reads only the one before it. Everything is built once from
+//! an [`OnboardConfig`] and validated there; after that a step allocates
+//! nothing, cannot panic, and does bounded work: one probe solve (its
+//! iteration cap), one tactile ingest (at most `C` contacts), at most one
+//! section fit per step (the cadence staggers the section, throat and
+//! opening work so no step does all of it), and one decision.
+//!
+//! Capacities, all const generics: `P` probe ports, `J` joint slots and
+//! `C` contact slots of a frame, `M` modules and `S` contact sensors of
+//! the body, `TW` wall points the tactile layer keeps, `ST` map stations,
+//! `W` wall-index points, `JN` junction records.
+
+use crate::body::{Body, BodyConfig, BodyConfigError, ModulePoses};
+use crate::decide::{
+    FlowObservation, MAX_FRAME_WALL_POINTS, Opening, Throat, WallObservation, probe_cov_to_map,
+};
+use crate::frame::{HeadPose, JointAngles, SensorFrame};
+use crate::gas::IdealGas;
+use crate::map::{MAX_BRANCHES, Section, probe_to_map};
+use crate::navigator::{Command, ConfigError, NavConfig, Navigator};
+use crate::probe::{
+    Direction, FaultReport, FlowSolution, ProbeError, ProbeLayout, ProbeSolver, SolverConfig,
+};
+use crate::tactile::{
+    OpeningSettings, SectionEstimate, SectionSettings, SectionShape, TactileConfig, TactileError,
+    TactileMap, ThroatSettings, ThroatStatus,
+};
+
+/// Most stations the throat trend looks at.
+pub const MAX_THROAT_STATIONS: usize = 6;
+
+/// How the frame-level stages are tuned.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct OnboardConfig<const P: usize, const M: usize, const S: usize> {
+    /// The body: modules and contact sensors.
+    pub body: BodyConfig<M, S>,
+    /// The probe's port layout (with per-port sigma and bias).
+    pub probe_layout: ProbeLayout<P>,
+    /// Probe solver settings.
+    pub probe: SolverConfig,
+    /// The gas.
+    pub gas: IdealGas,
+    /// Static temperature assumed for density when the frame carries no
+    /// total temperature, K.
+    pub assumed_static_temperature_k: f64,
+    /// Contacts to wall points.
+    pub tactile: TactileConfig,
+    /// Cross-section fits.
+    pub section: SectionSettings,
+    /// Throat trend.
+    pub throat: ThroatSettings,
+    /// Opening detection.
+    pub openings: OpeningSettings,
+    /// Steps between cross-section fits at the head (>= 1).
+    pub section_every: u32,
+    /// Steps between throat-trend evaluations (>= 1); staggered against
+    /// the section fit.
+    pub throat_every: u32,
+    /// Stations along the body for the throat trend (2 ..=
+    /// [`MAX_THROAT_STATIONS`]).
+    pub throat_stations: usize,
+    /// Decision settings.
+    pub nav: NavConfig,
+}
+
+impl<const P: usize, const M: usize, const S: usize> OnboardConfig<P, M, S> {
+    /// Defaults around a body, a probe layout and a gas: the navigator's
+    /// defaults for the body's largest module radius; sections every 4
+    /// steps and the throat every 8 (at 100 Hz: 25 Hz and 12.5 Hz, common
+    /// practice for a slow crawler, not from a published source); the
+    /// ellipse refinement off (it costs about 20 µs a fit).
+    #[must_use]
+    pub fn new(body: BodyConfig<M, S>, probe_layout: ProbeLayout<P>, gas: IdealGas) -> Self {
+        let radius = body
+            .modules
+            .iter()
+            .take(body.module_count)
+            .map(|m| m.radius_m)
+            .fold(0.0, f64::max);
+        let mut section = SectionSettings::default();
+        section.fit.ellipse_min_coverage_rad = f64::INFINITY;
+        section.half_window_m = 2.0 * radius;
+        section.max_distance_m = 12.0 * radius;
+        section.max_age_s = 30.0;
+        Self {
+            body,
+            probe_layout,
+            probe: SolverConfig::default(),
+            gas,
+            assumed_static_temperature_k: 293.15,
+            tactile: TactileConfig::default(),
+            section,
+            throat: ThroatSettings::default(),
+            openings: OpeningSettings::default(),
+            section_every: 4,
+            throat_every: 8,
+            throat_stations: 4,
+            nav: NavConfig::for_robot(radius),
+        }
+    }
+}
+
+/// Why a [`FrameNavigator`] could not be built.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum OnboardError {
+    /// The body configuration.
+    Body(BodyConfigError),
+    /// The probe layout or solver settings.
+    Probe(ProbeError),
+    /// The tactile settings.
+    Tactile(TactileError),
+    /// The decision settings.
+    Nav(ConfigError),
+    /// A cadence or count out of range.
+    Setting {
+        /// Field name.
+        field: &'static str,
+        /// Value given.
+        value: f64,
+    },
+}
+
+/// Counters kept by the frame stages (for the operator and the tests).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct OnboardCounters {
+    /// Steps taken.
+    pub steps: u64,
+    /// Probe solves that returned an error (bad input, cannot tell).
+    pub probe_errors: u64,
+    /// Frames whose contacts the tactile layer refused.
+    pub tactile_errors: u64,
+    /// Cross-section fits run.
+    pub section_fits: u64,
+}
+
+/// The navigator as embedded: frames in, commands out.
+#[derive(Debug, Clone)]
+pub struct FrameNavigator<
+    const P: usize,
+    const J: usize,
+    const C: usize,
+    const M: usize,
+    const S: usize,
+    const TW: usize,
+    const ST: usize,
+    const W: usize,
+    const JN: usize,
+> {
+    config: OnboardConfig<P, M, S>,
+    body: Body<M, S>,
+    solver: ProbeSolver<P>,
+    tactile: TactileMap<TW>,
+    nav: Navigator<P, S, ST, W, JN>,
+    last_pose: Option<HeadPose>,
+    last_joints: Option<[JointAngles; J]>,
+    section: Option<SectionEstimate>,
+    wall_template: WallObservation,
+    head_arc_m: f64,
+    body_length_m: f64,
+    counters: OnboardCounters,
+}
+
+/// A frame navigator for the demo robots: 7 ports, up to 8 modules (7
+/// joints), 48 contact slots and sensors, 256 tactile points, 128
+/// stations, 512 wall-index points, 8 junctions.
+pub type StandardFrameNavigator = FrameNavigator<7, 7, 48, 8, 48, 256, 128, 512, 8>;
+
+impl<
+    const P: usize,
+    const J: usize,
+    const C: usize,
+    const M: usize,
+    const S: usize,
+    const TW: usize,
+    const ST: usize,
+    const W: usize,
+    const JN: usize,
+> FrameNavigator<P, J, C, M, S, TW, ST, W, JN>
+{
+    /// Build and validate every stage.
+    ///
+    /// # Errors
+    /// [`OnboardError`] naming the stage and field at fault.
+    pub fn new(config: OnboardConfig<P, M, S>) -> Result<Self, OnboardError> {
+        if config.section_every == 0 {
+            return Err(OnboardError::Setting {
+                field: "section_every",
+                value: 0.0,
+            });
+        }
+        if config.throat_every == 0 {
+            return Err(OnboardError::Setting {
+                field: "throat_every",
+                value: 0.0,
+            });
+        }
+        if !(2..=MAX_THROAT_STATIONS).contains(&config.throat_stations) {
+            return Err(OnboardError::Setting {
+                field: "throat_stations",
+                value: f64::from(u32::try_from(config.throat_stations).unwrap_or(u32::MAX)),
+            });
+        }
+        let t = config.assumed_static_temperature_k;
+        if !(t.is_finite() && t > 0.0) {
+            return Err(OnboardError::Setting {
+                field: "assumed_static_temperature_k",
+                value: t,
+            });
+        }
+        let body = Body::new(config.body).map_err(OnboardError::Body)?;
+        let solver = ProbeSolver::new(config.probe_layout, config.gas, config.probe)
+            .map_err(OnboardError::Probe)?;
+        let tactile = TactileMap::new(config.tactile).map_err(OnboardError::Tactile)?;
+        let valid = config.nav.validate().map_err(OnboardError::Nav)?;
+        let nav = Navigator::new(valid).map_err(OnboardError::Nav)?;
+        let head_len = body.module(0).map_or(0.0, |m| m.length_m);
+        let body_length_m = (0..config.body.module_count)
+            .filter_map(|k| body.module(k))
+            .map(|m| m.length_m)
+            .sum();
+        Ok(Self {
+            config,
+            body,
+            solver,
+            tactile,
+            nav,
+            last_pose: None,
+            last_joints: None,
+            section: None,
+            wall_template: WallObservation::EMPTY,
+            head_arc_m: 0.5 * head_len,
+            body_length_m,
+            counters: OnboardCounters::default(),
+        })
+    }
+
+    /// The decision stage (map, health, filter).
+    #[must_use]
+    pub const fn navigator(&self) -> &Navigator<P, S, ST, W, JN> {
+        &self.nav
+    }
+
+    /// The tactile stage.
+    #[must_use]
+    pub const fn tactile(&self) -> &TactileMap<TW> {
+        &self.tactile
+    }
+
+    /// The last cross-section fitted at the head.
+    #[must_use]
+    pub const fn last_section(&self) -> Option<&SectionEstimate> {
+        self.section.as_ref()
+    }
+
+    /// Counters.
+    #[must_use]
+    pub const fn counters(&self) -> OnboardCounters {
+        self.counters
+    }
+
+    /// The configuration.
+    #[must_use]
+    pub const fn config(&self) -> &OnboardConfig<P, M, S> {
+        &self.config
+    }
+
+    /// One step.
+    pub fn step(&mut self, frame: &SensorFrame<P, J, C>) -> Command {
+        self.counters.steps = self.counters.steps.saturating_add(1);
+        if let Some(p) = frame.pose {
+            self.last_pose = Some(p);
+        }
+        if let Some(j) = frame.joints {
+            self.last_joints = Some(j);
+        }
+        let pose = frame.pose.or(self.last_pose);
+        let flow = match (frame.port_pressures_pa.as_ref(), pose.as_ref()) {
+            (Some(pr), Some(pose)) => {
+                Some(self.flow_observation(pr, frame.total_temperature_k, pose))
+            }
+            _ => None,
+        };
+        let wall = self.wall_observation(frame, pose.as_ref());
+        let obs = crate::navigator::Observation {
+            time_s: frame.time_s,
+            pose: frame.pose,
+            flow,
+            wall,
+        };
+        self.nav.step(&obs)
+    }
+
+    fn flow_observation(
+        &mut self,
+        pressures: &[f64; P],
+        total_temperature_k: Option<f64>,
+        pose: &HeadPose,
+    ) -> FlowObservation {
+        match self.solver.solve(pressures, total_temperature_k) {
+            Ok(sol) => flow_from_solution(
+                &sol,
+                pose,
+                &self.config.gas,
+                total_temperature_k,
+                self.config.assumed_static_temperature_k,
+                P,
+            ),
+            Err(_) => {
+                self.counters.probe_errors = self.counters.probe_errors.saturating_add(1);
+                FlowObservation {
+                    velocity_dir_map: None,
+                    dir_cov_map: [[0.0; 3]; 3],
+                    dynamic_pressure_pa: 0.0,
+                    dynamic_pressure_sigma_pa: 0.0,
+                    static_pressure_pa: 0.0,
+                    mach: 0.0,
+                    density_kg_per_m3: 0.0,
+                    degraded: true,
+                    port_suspect_mask: all_ports_mask(P),
+                    port_failed_mask: 0,
+                }
+            }
+        }
+    }
+
+    fn poses(&self, pose: &HeadPose) -> Option<ModulePoses<M>> {
+        let joints: &[JointAngles] = match self.last_joints.as_ref() {
+            Some(j) => j,
+            None => &[],
+        };
+        self.body.module_poses(pose, joints).ok()
+    }
+
+    fn wall_observation(
+        &mut self,
+        frame: &SensorFrame<P, J, C>,
+        pose: Option<&HeadPose>,
+    ) -> Option<WallObservation> {
+        if frame.contact_count > 0 {
+            if self.tactile.ingest(frame, &self.body).is_err() {
+                self.counters.tactile_errors = self.counters.tactile_errors.saturating_add(1);
+                return None;
+            }
+        } else if self.section.is_none() {
+            // Nothing felt yet and nothing to report.
+            return None;
+        }
+        let pose = pose?;
+        let step = self.counters.steps;
+        let poses = self.poses(pose)?;
+        let mut w = self.wall_template;
+        if step.is_multiple_of(u64::from(self.config.section_every)) || self.section.is_none() {
+            if let Some(station) = self.body.station(&poses, self.head_arc_m) {
+                let est = self.tactile.section_at(&station, &self.config.section);
+                self.counters.section_fits = self.counters.section_fits.saturating_add(1);
+                self.section = Some(est);
+                w.section = section_for_map(&est);
+                w.conduit_axis_map = Some([est.axis_map.x, est.axis_map.y, est.axis_map.z]);
+                let report = self.tactile.openings::<MAX_BRANCHES>(
+                    &est,
+                    &self.config.section,
+                    &self.config.openings,
+                );
+                let mut count = 0u8;
+                for (slot, c) in w.openings.iter_mut().zip(report.candidates()) {
+                    let r = est.clear_diameter_m().map_or(0.0, |d| 0.5 * d);
+                    let centre = est.centre_map_m().unwrap_or(est.station.point_map_m);
+                    let dir = [c.direction_map.x, c.direction_map.y, c.direction_map.z];
+                    *slot = Opening {
+                        direction_map: dir,
+                        mouth_m: [
+                            centre.x + dir[0] * r,
+                            centre.y + dir[1] * r,
+                            centre.z + dir[2] * r,
+                        ],
+                        clear_width_m: c.clear_width_m,
+                        width_is_lower_bound: true,
+                    };
+                    count = count.saturating_add(1);
+                }
+                w.opening_count = count;
+            }
+        } else if step % u64::from(self.config.throat_every)
+            == u64::from(self.config.throat_every / 2)
+        {
+            w.throat = self.throat_now(&poses);
+        }
+        // This frame's touched wall points, and whether one lies across
+        // the path ahead of the head.
+        let forward = probe_to_map([1.0, 0.0, 0.0], pose).unwrap_or([1.0, 0.0, 0.0]);
+        let mut n = 0usize;
+        let mut end_ahead = false;
+        for p in self
+            .tactile
+            .points()
+            .filter(|p| p.touched && p.time_s == frame.time_s)
+        {
+            if let Some(slot) = w.wall_points_m.get_mut(n) {
+                *slot = [p.point_map_m.x, p.point_map_m.y, p.point_map_m.z];
+                n += 1;
+            }
+            let along = p.normal_map.x * forward[0]
+                + p.normal_map.y * forward[1]
+                + p.normal_map.z * forward[2];
+            if p.module == 0 && along > END_AHEAD_COS {
+                end_ahead = true;
+            }
+        }
+        w.wall_point_count = u8::try_from(n.min(MAX_FRAME_WALL_POINTS)).unwrap_or(u8::MAX);
+        w.end_ahead = end_ahead;
+        // Keep the geometry for the steps between fits; per-frame fields
+        // are cleared.
+        self.wall_template = WallObservation {
+            wall_points_m: [[0.0; 3]; MAX_FRAME_WALL_POINTS],
+            wall_point_count: 0,
+            end_ahead: false,
+            throat: w.throat,
+            ..w
+        };
+        Some(w)
+    }
+
+    fn throat_now(&self, poses: &ModulePoses<M>) -> Option<Throat> {
+        let k = self.config.throat_stations;
+        let span = (self.body_length_m - self.head_arc_m).max(0.0);
+        let first = self.body.station(poses, self.head_arc_m)?;
+        let mut list = [first; MAX_THROAT_STATIONS];
+        let mut n = 0usize;
+        let denom = f64::from(u32::try_from(k.max(2) - 1).unwrap_or(1));
+        for i in (0u32..).take(k) {
+            let frac = f64::from(i) / denom;
+            if let Some(s) = self
+                .body
+                .station(poses, self.head_arc_m + frac * 0.9 * span)
+                && let Some(slot) = list.get_mut(n)
+            {
+                *slot = s;
+                n += 1;
+            }
+        }
+        let report = self
+            .tactile
+            .throat(list.get(..n)?, &self.config.section, &self.config.throat);
+        match (report.status, report.min_clear_diameter_m) {
+            (ThroatStatus::Narrowing, Some(d)) => Some(Throat {
+                min_clear_diameter_m: d,
+                distance_ahead_m: 0.0,
+            }),
+            _ => None,
+        }
+    }
+}
+
+/// A touched head contact whose wall normal points this close to straight
+/// ahead (cosine) counts as wall across the path.
+const END_AHEAD_COS: f64 = 0.7;
+
+fn all_ports_mask(n: usize) -> u32 {
+    if n >= 32 { u32::MAX } else { (1u32 << n) - 1 }
+}
+
+/// Turn a probe solution into a map-frame flow observation.
+#[must_use]
+pub fn flow_from_solution(
+    sol: &FlowSolution,
+    pose: &HeadPose,
+    gas: &IdealGas,
+    total_temperature_k: Option<f64>,
+    assumed_static_temperature_k: f64,
+    ports: usize,
+) -> FlowObservation {
+    let trustworthy = sol.is_trustworthy();
+    let (velocity_dir_map, dir_cov_map) = match sol.direction {
+        Direction::Valid {
+            velocity_unit,
+            covariance,
+            ..
+        } if trustworthy => {
+            let cov = crate::decide::mat3_to_arr(&covariance);
+            (
+                probe_to_map([velocity_unit.x, velocity_unit.y, velocity_unit.z], pose),
+                probe_cov_to_map(cov, pose).unwrap_or([[0.0; 3]; 3]),
+            )
+        }
+        _ => (None, [[0.0; 3]; 3]),
+    };
+    let (suspect, failed) = match sol.fault {
+        FaultReport::Isolated { port, .. } if port < 32 => (0, 1u32 << port),
+        FaultReport::DetectedNotIsolated { .. } => (all_ports_mask(ports), 0),
+        _ => (0, 0),
+    };
+    let static_t = match total_temperature_k {
+        Some(t0) => gas
+            .t0_over_t(sol.mach)
+            .map_or(assumed_static_temperature_k, |r| t0 / r),
+        None => assumed_static_temperature_k,
+    };
+    let density = gas
+        .density_kg_per_m3(sol.static_pressure_pa, static_t)
+        .unwrap_or(0.0);
+    FlowObservation {
+        velocity_dir_map,
+        dir_cov_map,
+        dynamic_pressure_pa: sol.dynamic_pressure_pa,
+        dynamic_pressure_sigma_pa: sol.sigma.dynamic_pressure_pa,
+        static_pressure_pa: sol.static_pressure_pa,
+        mach: sol.mach,
+        density_kg_per_m3: density,
+        degraded: !trustworthy || sol.regime_ambiguous,
+        port_suspect_mask: suspect,
+        port_failed_mask: failed,
+    }
+}
+
+/// The map's section summary of a tactile estimate.
+#[must_use]
+pub fn section_for_map(est: &SectionEstimate) -> Section {
+    match est.plane.shape {
+        SectionShape::Circle(c) => {
+            let centre = est.plane_to_map(c.centre_plane_m);
+            let cov = c.covariance;
+            let centre_var = cov.m11.max(cov.m22).max(0.0);
+            Section::Circle {
+                centre_m: [centre.x, centre.y, centre.z],
+                radius_m: c.radius_m,
+                centre_sigma_m: libm::sqrt(centre_var) + est.kinematic_sigma_m,
+                radius_sigma_m: c.radius_sigma_m,
+            }
+        }
+        SectionShape::LowerBoundOnly { min_radius_m, .. } => {
+            Section::LowerBoundOnly { min_radius_m }
+        }
+        SectionShape::Unknown { .. } => Section::Unknown,
+    }
+}
