@@ -293,6 +293,7 @@ impl DecideConfig {
 
 /// Why a back-out started.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub enum BackOutCause {
     /// Wall across the path.
     DeadEnd,
@@ -316,6 +317,7 @@ impl BackOutCause {
 
 /// What the navigator is doing (the decision memory between steps).
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub enum Phase {
     /// Following the streamline.
     Follow,
@@ -363,6 +365,7 @@ pub struct DecideState {
 
 /// The reason code of a decision.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub enum ReasonCode {
     /// Heading upstream, centred, standoff kept.
     FollowUpstream,
@@ -396,6 +399,7 @@ pub enum ReasonCode {
 
 /// What capped the speed.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub enum SpeedLimit {
     /// Nothing: cruise.
     Cruise,
@@ -415,6 +419,7 @@ pub enum SpeedLimit {
 
 /// The branch comparison behind a decision at a junction.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct BranchRecord {
     /// Junction id.
     pub junction: u16,
@@ -450,6 +455,7 @@ pub struct BranchRecord {
 
 /// Health flags carried with every command.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct HealthFlags {
     /// Flow channel state.
     pub flow: ChannelState,
@@ -465,6 +471,7 @@ pub struct HealthFlags {
 
 /// Why the frame was (or was not) used.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub enum FrameDisposition {
     /// Used in full.
     Used,
@@ -481,6 +488,7 @@ pub enum FrameDisposition {
 
 /// The record of one decision: the reason and the numbers behind it.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct DecisionRecord {
     /// Frame time, s.
     pub time_s: f64,

@@ -158,6 +158,7 @@ pub enum ChannelReason {
 
 /// State of one channel.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub enum ChannelState {
     /// Usable, nothing wrong.
     Ok,
@@ -182,6 +183,7 @@ pub struct ChannelStatus {
 
 /// Operating mode.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub enum OperatingMode {
     /// Both channels ok.
     Nominal,

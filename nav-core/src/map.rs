@@ -614,6 +614,7 @@ impl<const S: usize> StationRing<S> {
 
 /// Why a branch was not chosen.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub enum RejectReason {
     /// Clear width below robot diameter plus margin.
     TooNarrow {
@@ -644,6 +645,7 @@ pub enum RejectReason {
 
 /// Why a branch was declared a dead end.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub enum DeadEndCause {
     /// Wall across the path.
     Blocked,
@@ -655,6 +657,7 @@ pub enum DeadEndCause {
 
 /// Status of one candidate branch.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub enum BranchStatus {
     /// Not yet decided.
     Unexplored,

@@ -48,6 +48,7 @@ pub struct Observation {
 
 /// Health flags, mode and decision for one step.
 #[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct Command {
     /// Frame time, s.
     pub time_s: f64,
