@@ -2,3 +2,4 @@
 //! trace diffs, campaigns, plots and rig-log import.
 
 pub mod record;
+pub mod sim;
