@@ -215,7 +215,8 @@ impl std::error::Error for FlowError {}
 
 /// Relative flow change that ends the Newton iteration.
 pub const FLOW_TOLERANCE: f64 = 1e-11;
-/// Mass balance every node must meet, relative to its throughput.
+/// Mass balance every node must meet, relative to its throughput (a
+/// stagnant node: relative to the largest link flow).
 pub const MASS_BALANCE_TOLERANCE: f64 = 1e-9;
 
 struct LossEval {
@@ -541,10 +542,13 @@ impl FlowProblem {
         let mut max_rel: f64 = 0.0;
         for (i, c) in self.nodes.iter().enumerate() {
             if matches!(c, NodeCondition::Free { .. }) {
-                // Half the throughput is the flow through the node; a
-                // stagnant dead end is measured against a thousandth of the
-                // network's largest link flow instead.
-                let scale = (0.5 * through[i]).max(1e-3 * qref).max(1e-300);
+                // Half the throughput is the flow through the node. A
+                // stagnant node (a blind end: throughput below a thousandth
+                // of the largest link flow) is measured against the largest
+                // link flow instead: its residual is rounding in the
+                // pressure differences, not lost mass.
+                let half = 0.5 * through[i];
+                let scale = if half < 1e-3 * qref { qref } else { half }.max(1e-300);
                 let rel = resid[i].abs() / scale;
                 max_rel = max_rel.max(rel);
                 if rel > MASS_BALANCE_TOLERANCE {
