@@ -144,15 +144,42 @@ impl Body {
         self.transport_head(old_axis);
     }
 
-    /// Move the head back along its trail by `dist_m`.
-    pub fn retreat(&mut self, dist_m: f64) {
+    /// Move the head back along its trail by `dist_m`. Beyond the stored
+    /// trail the tail goes on straight, each new trail point passed through
+    /// `clamp` (which keeps it inside the walls, `None` where nothing
+    /// fits), so a backing robot slides along the wall its tail meets.
+    pub fn retreat(&mut self, dist_m: f64, clamp: &dyn Fn(V3) -> Option<V3>) {
         let old_axis = self.head_axis();
+        // Make sure the trail reaches keep_m + dist_m behind the head.
+        let mut arc = 0.0;
+        let mut prev = self.head;
+        for q in &self.trail {
+            arc += vec3::dist(prev, *q);
+            prev = *q;
+        }
+        let mut guard = 0;
+        while arc < self.keep_m + dist_m + 0.05 && guard < 100_000 {
+            guard += 1;
+            let n = self.trail.len();
+            let (a, b) = match n {
+                0 => (self.head, self.head),
+                1 => (self.head, self.trail[0]),
+                _ => (self.trail[n - 2], self.trail[n - 1]),
+            };
+            let dir = vec3::unit(vec3::sub(b, a)).unwrap_or(vec3::scale(self.head_axis(), -1.0));
+            let Some(p) = clamp(vec3::axpy(b, TRAIL_STEP_M, dir)) else {
+                break; // nowhere for the tail to go
+            };
+            let step = vec3::dist(p, b);
+            if step < 0.1 * TRAIL_STEP_M {
+                break; // jammed: the tail cannot go further
+            }
+            self.trail.push_back(p);
+            arc += step;
+        }
         let mut left = dist_m;
         let mut pos = self.head;
-        loop {
-            if self.trail.len() < 4 {
-                self.extend_tail();
-            }
+        while self.trail.len() > 1 {
             let Some(&next) = self.trail.front() else { break };
             let d = vec3::dist(pos, next);
             if d > left {
@@ -214,7 +241,8 @@ impl Body {
                 self.extend_tail();
             }
             let q = self.trail[i];
-            if vec3::dist(p, q) >= len {
+            let dq = vec3::sub(p, q);
+            if vec3::dot(dq, dq) >= len * len {
                 // Intersect segment prev->q with the sphere |x - p| = len.
                 let d = vec3::sub(q, prev);
                 let f = vec3::sub(prev, p);
@@ -231,41 +259,54 @@ impl Body {
     }
 
     fn update_chain(&mut self) {
-        self.origins[0] = self.head;
-        let mut idx = 0;
         let n = self.lengths.len();
+        // Joint points on the trail: J_0 = head, J_{k+1} at chord L_k behind J_k.
+        let mut idx = 0;
+        let mut prev = self.head;
+        self.origins[0] = self.head;
         for k in 0..n {
-            let (jp, i2) = self.point_behind(self.origins[k], idx, self.lengths[k]);
+            let (jp, i2) = self.point_behind(prev, idx, self.lengths[k]);
             idx = i2;
-            if k + 1 < n {
-                self.origins[k + 1] = jp;
-                // Axis of module k+1: chord from the next joint to its origin.
-                let (jn, _) = self.point_behind(jp, idx, self.lengths[k + 1]);
-                let xk1 = vec3::unit(vec3::sub(jp, jn)).unwrap_or_else(|| {
-                    let c = self.rotations[k].column(0);
-                    [c[0], c[1], c[2]]
-                });
-                // d = R_k^T x_{k+1} = (cos y cos p, sin y cos p, -sin p).
-                let d = self.rotations[k].transpose() * to_v(xk1);
-                let pitch = libm::asin((-d.z).clamp(-1.0, 1.0));
-                let yaw = libm::atan2(d.y, d.x);
-                self.joints[k] = JointRecord {
-                    pitch_rad: pitch,
-                    yaw_rad: yaw,
-                };
-                let rz = Rotation3::from_axis_angle(&Vector3::z_axis(), yaw);
-                let ry = Rotation3::from_axis_angle(&Vector3::y_axis(), pitch);
-                self.rotations[k + 1] = self.rotations[k] * rz.matrix() * ry.matrix();
-                // The convention places the joint at R_k (-L_k, 0, 0) from
-                // origin_k: the head's chord direction may differ slightly
-                // from its frame's x (parallel transport), so use the frame.
-                let c = self.rotations[k].column(0);
-                self.origins[k + 1] = vec3::axpy(self.origins[k], -self.lengths[k], [c[0], c[1], c[2]]);
+            if k == 0 {
+                prev = jp;
+                continue;
             }
+            // Module k spans J_k (= prev) to J_{k+1} (= jp).
+            let xk = vec3::unit(vec3::sub(prev, jp)).unwrap_or_else(|| {
+                let c = self.rotations[k - 1].column(0);
+                [c[0], c[1], c[2]]
+            });
+            self.set_joint(k - 1, xk);
+            prev = jp;
         }
     }
 
+    /// Joint `k` (between modules `k` and `k + 1`): the pitch and yaw that
+    /// turn module `k`'s frame so its x axis becomes `x_next`; places module
+    /// `k + 1` by the convention.
+    fn set_joint(&mut self, k: usize, x_next: V3) {
+        // d = R_k^T x_{k+1} = (cos y cos p, sin y cos p, -sin p).
+        let d = self.rotations[k].transpose() * to_v(x_next);
+        let pitch = libm::asin((-d.z).clamp(-1.0, 1.0));
+        let yaw = libm::atan2(d.y, d.x);
+        self.joints[k] = JointRecord {
+            pitch_rad: pitch,
+            yaw_rad: yaw,
+        };
+        let rz = Rotation3::from_axis_angle(&Vector3::z_axis(), yaw);
+        let ry = Rotation3::from_axis_angle(&Vector3::y_axis(), pitch);
+        self.rotations[k + 1] = self.rotations[k] * rz.matrix() * ry.matrix();
+        let c = self.rotations[k].column(0);
+        self.origins[k + 1] = vec3::axpy(self.origins[k], -self.lengths[k], [c[0], c[1], c[2]]);
+    }
+
     fn trim(&mut self) {
+        // Trim only when the trail is a quarter longer than needed (the
+        // walk below is the costliest part of a step otherwise).
+        let need = (self.keep_m / TRAIL_STEP_M) as usize + 8;
+        if self.trail.len() < need + need / 4 {
+            return;
+        }
         // Drop trail points more than keep_m behind the head (path length).
         let mut s = 0.0;
         let mut prev = self.head;
@@ -320,7 +361,7 @@ mod tests {
         }
         // Backing up retraces the trail.
         let before = b.origins[1];
-        b.retreat(0.2);
+        b.retreat(0.2, &|p| Some(p));
         assert!(vec3::dist(b.head(), before) < 0.01);
     }
 }

@@ -388,8 +388,14 @@ impl Sim {
             let want = vec3::unit(cmd.heading_map).unwrap_or(self.travel_dir);
             let axis = self.body.head_axis();
             if vec3::dot(want, axis) < -0.5 {
-                self.body.retreat(speed * dt);
+                let g = &self.world.geometry;
+                let tail = self.scenario.robot.modules.last().map_or(0.0, |m| m.radius_m);
+                let need = tail - self.scenario.motion.skin_compliance_m;
+                self.body.retreat(speed * dt, &|p| clamp_point_opt(g, p, need).0);
                 self.travel_dir = self.body.head_axis();
+                if self.body.head() == before {
+                    struck = true;
+                }
             } else {
                 self.travel_dir = turn_toward(self.travel_dir, want, self.scenario.motion.turn_rate_limit_rad_per_s * dt);
                 let target = vec3::axpy(before, speed * dt, self.travel_dir);
@@ -432,40 +438,29 @@ impl Sim {
     /// Keep the head's skin within the skin compliance of the walls: returns
     /// the allowed point nearest `target` and whether the wall stopped it.
     fn clamp_head(&self, target: V3) -> (V3, bool) {
-        let g = &self.world.geometry;
         let need = self.scenario.robot.modules[0].radius_m - self.scenario.motion.skin_compliance_m;
-        if g.clearance_m(target) >= need {
-            return (target, false);
-        }
-        let mut best: Option<(f64, V3)> = None;
-        for &pi in g.candidates(target) {
-            let piece = &g.pieces[pi as usize];
-            let h = piece.locate(pi, target);
-            let allowed = h.radius_m - need - 1e-9;
-            if allowed <= 0.0 {
-                continue;
-            }
-            let q = if h.rho_m > allowed {
-                vec3::axpy(h.foot, allowed / h.rho_m, h.offset)
-            } else {
-                target
-            };
-            if g.clearance_m(q) < need - 1e-6 {
-                continue;
-            }
-            let d = vec3::dist(q, target);
-            if best.is_none_or(|b| d < b.0) {
-                best = Some((d, q));
-            }
-        }
-        (best.map_or(self.body.head(), |b| b.1), true)
+        let (q, hit) = clamp_point_opt(&self.world.geometry, target, need);
+        (q.unwrap_or(self.body.head()), hit)
     }
 
     fn score_position(&mut self) {
         let head = self.body.head();
         if self.track_standoff {
-            let s = self.walls.distance_m(head) - self.scenario.robot.modules[0].radius_m;
-            self.outcome.min_standoff_m = self.outcome.min_standoff_m.min(s);
+            let r_head = self.scenario.robot.modules[0].radius_m;
+            // The clearance in the most-inside tube, times the cosine of
+            // its wall slope, is a lower bound of the distance to the
+            // union's wall (that ball lies inside the tube), and the nearest
+            // wall sample is never nearer than the wall: query the tree only
+            // when the minimum could still fall.
+            let g = &self.world.geometry;
+            let bound = g.best_hit(head).map_or(f64::NEG_INFINITY, |h| {
+                let slope = g.pieces[h.piece as usize].dr_ds();
+                h.clearance_m / libm::sqrt(1.0 + slope * slope)
+            }) - r_head;
+            if bound < self.outcome.min_standoff_m {
+                let s = self.walls.distance_m(head) - r_head;
+                self.outcome.min_standoff_m = self.outcome.min_standoff_m.min(s);
+            }
         }
         if !self.outcome.reached_source {
             let reach = self.scenario.scoring.reach_distance_m;
@@ -499,6 +494,37 @@ impl Sim {
     }
 }
 
+/// The point nearest `target` whose clearance is at least `need` (the
+/// projection onto the allowed core of the nearest tube wide enough), and
+/// whether `target` itself had to move. `None` when no tube near `target`
+/// is wide enough.
+fn clamp_point_opt(g: &geometry::Geometry, target: V3, need: f64) -> (Option<V3>, bool) {
+    if g.clearance_m(target) >= need {
+        return (Some(target), false);
+    }
+    let mut best: Option<(f64, V3)> = None;
+    for &pi in g.candidates(target) {
+        let h = g.pieces[pi as usize].locate(pi, target);
+        let allowed = h.radius_m - need - 1e-9;
+        if allowed <= 0.0 {
+            continue;
+        }
+        let q = if h.rho_m > allowed {
+            vec3::axpy(h.foot, allowed / h.rho_m, h.offset)
+        } else {
+            target
+        };
+        if g.clearance_m(q) < need - 1e-6 {
+            continue;
+        }
+        let d = vec3::dist(q, target);
+        if best.is_none_or(|b| d < b.0) {
+            best = Some((d, q));
+        }
+    }
+    (best.map(|b| b.1), true)
+}
+
 /// Turn the unit vector `from` toward the unit vector `to` by at most
 /// `max_rad`.
 fn turn_toward(from: V3, to: V3, max_rad: f64) -> V3 {
@@ -527,6 +553,10 @@ pub struct Oracle {
     /// Fraction of the speed limit to command.
     pub speed_fraction: f64,
     reach_m: f64,
+    patrol: bool,
+    backing: bool,
+    last_pos: V3,
+    stalled_steps: u32,
 }
 
 impl Oracle {
@@ -543,7 +573,29 @@ impl Oracle {
             lookahead_m: 0.3,
             speed_fraction: 1.0,
             reach_m: 0.5 * sim.scenario().scoring.reach_distance_m,
+            patrol: false,
+            backing: false,
+            last_pos: sim.body().head(),
+            stalled_steps: 0,
         }
+    }
+
+    /// An oracle that, instead of holding at the source, backs out along
+    /// the path to the start and goes in again, for as long as it is asked
+    /// (a traverse of any length for throughput figures). A back-out that
+    /// stalls for 2 s turns into a forward leg again.
+    #[must_use]
+    pub fn patrol(sim: &Sim) -> Self {
+        Self {
+            patrol: true,
+            ..Self::new(sim)
+        }
+    }
+
+    /// Whether the oracle is backing out (patrol mode).
+    #[must_use]
+    pub fn is_backing(&self) -> bool {
+        self.backing
     }
 
     /// The command for `sim`'s current true state.
@@ -552,7 +604,33 @@ impl Oracle {
         let (Some(&goal), false) = (self.poly.last(), self.poly.is_empty()) else {
             return MotionCommand::hold();
         };
+        let speed = self.speed_fraction * sim.robot_spec().max_speed_m_per_s;
+        if self.backing {
+            if vec3::dist(head, self.last_pos) < 1e-6 {
+                self.stalled_steps += 1;
+            } else {
+                self.stalled_steps = 0;
+            }
+            self.last_pos = head;
+            let stall_limit = (2.0 / sim.time_step_s()) as u32;
+            let home = self.poly[0];
+            let back_home = vec3::dist(head, home) <= 2.0 * self.reach_m
+                || vec3::dist(head, goal) >= vec3::dist(home, goal);
+            if back_home || self.stalled_steps > stall_limit {
+                self.backing = false;
+                self.idx = 0;
+            } else {
+                return MotionCommand {
+                    heading_map: vec3::scale(sim.body().head_axis(), -1.0),
+                    speed_m_per_s: speed,
+                };
+            }
+        }
         if vec3::dist(head, goal) <= self.reach_m {
+            if self.patrol {
+                self.backing = true;
+                self.stalled_steps = 0;
+            }
             return MotionCommand::hold();
         }
         // Progress: nearest polyline point within a forward window.
@@ -570,7 +648,7 @@ impl Oracle {
         let heading = vec3::unit(vec3::sub(self.poly[j], head)).unwrap_or([1.0, 0.0, 0.0]);
         MotionCommand {
             heading_map: heading,
-            speed_m_per_s: self.speed_fraction * sim.robot_spec().max_speed_m_per_s,
+            speed_m_per_s: speed,
         }
     }
 }
