@@ -214,7 +214,7 @@ impl core::fmt::Display for FlowError {
 impl std::error::Error for FlowError {}
 
 /// Relative flow change that ends the Newton iteration.
-pub const FLOW_TOLERANCE: f64 = 1e-11;
+pub const FLOW_TOLERANCE: f64 = 1e-9;
 /// Mass balance every node must meet, relative to its throughput (a
 /// stagnant node: relative to the largest link flow).
 pub const MASS_BALANCE_TOLERANCE: f64 = 1e-9;
