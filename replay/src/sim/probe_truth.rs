@@ -45,18 +45,20 @@ pub fn port_normals(layout: &ProbeLayoutSpec) -> Vec<V3> {
 /// Ideal port pressures, Pa (absolute), written into `out`.
 ///
 /// `normals`: port normals in the frame of `v_rel`; `v_rel`: gas velocity
-/// relative to the probe, same frame, m/s; `p_static_pa`, `t_static_k`:
-/// free-stream static state.
+/// relative to the probe, same frame, m/s; `p_static_pa`,
+/// `density_kg_per_m3`: free-stream static state. The speed of sound is
+/// `sqrt(gamma p / rho)`, so that at low Mach `p0 - p` tends to exactly
+/// `rho V^2 / 2` with the given density.
 pub fn port_pressures(
     gas: &IdealGas,
     normals: &[V3],
     v_rel: V3,
     p_static_pa: f64,
-    t_static_k: f64,
+    density_kg_per_m3: f64,
     out: &mut [f64],
 ) {
     let speed = vec3::norm(v_rel);
-    let a = libm::sqrt(gas.gamma() * gas.r_j_per_kg_k() * t_static_k);
+    let a = libm::sqrt(gas.gamma() * p_static_pa / density_kg_per_m3);
     let mach = speed / a;
     if !(speed > 1e-12) || !mach.is_finite() {
         for o in out.iter_mut() {
@@ -106,8 +108,8 @@ mod tests {
         // Low Mach head-on: tip sees q (Cp = 1), cone ports Cp = 1 - 9/4 * 1/2 = -1/8.
         let (p, t) = (1e5, 300.0);
         let v = 10.0;
-        port_pressures(&g, &normals, [-v, 0.0, 0.0], p, t, &mut out);
         let rho = p / (g.r_j_per_kg_k() * t);
+        port_pressures(&g, &normals, [-v, 0.0, 0.0], p, rho, &mut out);
         let q = 0.5 * rho * v * v;
         assert!((out[0] - p - q).abs() < 1e-3 * q);
         assert!((out[1] - p + 0.125 * q).abs() < 1e-3 * q);
@@ -115,11 +117,11 @@ mod tests {
         // 5.6404 p (NACA 1135 eq. 100, gamma 1.4); a 45 deg port reads
         // p + (p02 - p)/2.
         let a = libm::sqrt(1.4 * g.r_j_per_kg_k() * t);
-        port_pressures(&g, &normals, [-2.0 * a, 0.0, 0.0], p, t, &mut out);
+        port_pressures(&g, &normals, [-2.0 * a, 0.0, 0.0], p, rho, &mut out);
         assert!((out[0] / p - 5.6404).abs() < 1e-4);
         assert!((out[1] - (p + 0.5 * (out[0] - p))).abs() < 1e-6 * p);
         // A port facing downstream (theta > 90 deg) reads static.
-        port_pressures(&g, &normals, [2.0 * a, 0.0, 0.0], p, t, &mut out);
+        port_pressures(&g, &normals, [2.0 * a, 0.0, 0.0], p, rho, &mut out);
         assert_eq!(out[0], p);
     }
 }

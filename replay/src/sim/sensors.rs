@@ -176,7 +176,7 @@ impl Sensors {
             &self.normals_head,
             v_rel_head,
             sample.static_pressure_pa,
-            sample.static_temperature_k,
+            sample.density_kg_per_m3,
             &mut self.truth_ports,
         );
         for i in 0..self.nports {
