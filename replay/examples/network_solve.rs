@@ -13,10 +13,21 @@ use replay::sim::network::{FlowProblem, LinearSolver, Link, LinkModel, LossPiece
 fn build() -> FlowProblem {
     let (nx, ny) = (25usize, 20usize);
     let id = |i: usize, j: usize| j * nx + i;
-    let mut nodes = vec![NodeCondition::Free { injection_kg_per_s: 0.0 }; nx * ny];
-    nodes[id(0, 0)] = NodeCondition::Fixed { pressure_pa: 101_425.0 };
-    nodes[id(nx - 1, ny - 1)] = NodeCondition::Fixed { pressure_pa: 101_325.0 };
-    nodes[id(nx - 1, 0)] = NodeCondition::Fixed { pressure_pa: 101_330.0 };
+    let mut nodes = vec![
+        NodeCondition::Free {
+            injection_kg_per_s: 0.0
+        };
+        nx * ny
+    ];
+    nodes[id(0, 0)] = NodeCondition::Fixed {
+        pressure_pa: 101_425.0,
+    };
+    nodes[id(nx - 1, ny - 1)] = NodeCondition::Fixed {
+        pressure_pa: 101_325.0,
+    };
+    nodes[id(nx - 1, 0)] = NodeCondition::Fixed {
+        pressure_pa: 101_330.0,
+    };
     let mut links = Vec::new();
     let mut k = 0usize;
     let mut pipe = |a: usize, b: usize, len: f64, links: &mut Vec<Link>| {
@@ -27,7 +38,10 @@ fn build() -> FlowProblem {
             from: a,
             to: b,
             model: LinkModel::Incompressible {
-                pieces: vec![LossPiece { length_m: len, diameter_m: d }],
+                pieces: vec![LossPiece {
+                    length_m: len,
+                    diameter_m: d,
+                }],
                 roughness_m: eps,
             },
         });
@@ -46,7 +60,9 @@ fn build() -> FlowProblem {
     let mut s = 0;
     while links.len() < 1000 {
         let at = (s * 37 + 11) % (nx * ny);
-        nodes.push(NodeCondition::Free { injection_kg_per_s: 0.0 });
+        nodes.push(NodeCondition::Free {
+            injection_kg_per_s: 0.0,
+        });
         let n = nodes.len() - 1;
         pipe(at, n, 4.0, &mut links);
         s += 1;
@@ -65,7 +81,10 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let base = build();
     let mut last = String::new();
     for solver in [LinearSolver::Dense, LinearSolver::ConjugateGradient] {
-        let prob = FlowProblem { solver, ..base.clone() };
+        let prob = FlowProblem {
+            solver,
+            ..base.clone()
+        };
         // Median of 5 solves.
         let mut times = Vec::new();
         let mut sol = None;
@@ -77,7 +96,11 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         }
         times.sort_by(f64::total_cmp);
         let s = sol.ok_or("no solve")?;
-        let qmax = s.links.iter().map(|l| l.mass_flow_kg_per_s.abs()).fold(0.0, f64::max);
+        let qmax = s
+            .links
+            .iter()
+            .map(|l| l.mass_flow_kg_per_s.abs())
+            .fold(0.0, f64::max);
         println!(
             "{solver:?}: {} links, {} nodes, {} Newton iterations, median {:.2} ms (min {:.2}), worst relative imbalance {:.2e}, largest flow {:.3} kg/s",
             prob.links.len(),

@@ -14,7 +14,13 @@ fn channel() -> Nozzle {
     let st: Vec<f64> = (0..=200).map(|i| f64::from(i) * 0.01).collect();
     let ar: Vec<f64> = st
         .iter()
-        .map(|&s| if s <= 1.0 { 2.0 - s } else { 1.0 + (27.0 / 16.0 - 1.0) * (s - 1.0) })
+        .map(|&s| {
+            if s <= 1.0 {
+                2.0 - s
+            } else {
+                1.0 + (27.0 / 16.0 - 1.0) * (s - 1.0)
+            }
+        })
         .collect();
     Nozzle::new(st, ar, AIR, 300.0).unwrap()
 }
@@ -83,7 +89,10 @@ fn normal_shock_where_back_pressure_requires() {
     // Downstream of the shock the stagnation pressure is lower.
     assert!(st.p0_pa.last().unwrap() < &p0);
     // Table II spot check of the shock relation used (M1 = 1.5: p02/p01 = 0.9298).
-    assert!(printed4(AIR.normal_shock_p02_over_p01(1.5).unwrap(), 0.9298));
+    assert!(printed4(
+        AIR.normal_shock_p02_over_p01(1.5).unwrap(),
+        0.9298
+    ));
 }
 
 /// The Hollow Kettle demo: choked fissure, supersonic above the throat, a
@@ -106,6 +115,8 @@ fn fumarole_demo_has_choked_supersonic_shocked_fissure() {
     assert!(m_at(sh.station_m + 0.3) < 1.0);
     // Choked flux through the throat (radius 0.12 m) from the pocket's state.
     let a_t = core::f64::consts::PI * 0.12 * 0.12;
-    let mstar = IdealGas::WATER_VAPOUR.choked_mass_flow_kg_per_s(a_t, 160_000.0, 410.0).unwrap();
+    let mstar = IdealGas::WATER_VAPOUR
+        .choked_mass_flow_kg_per_s(a_t, 160_000.0, 410.0)
+        .unwrap();
     assert!((nzs.mass_flow_kg_per_s - mstar).abs() < 1e-9 * mstar);
 }

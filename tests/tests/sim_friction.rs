@@ -11,7 +11,10 @@ use replay::sim::network::{FlowProblem, LinearSolver, Link, LinkModel, LossPiece
 fn colebrook_matches_fluids_reference() {
     let text = include_str!("../reference/colebrook_reference.csv");
     let mut n = 0;
-    for line in text.lines().filter(|l| !l.starts_with('#') && !l.starts_with("reynolds")) {
+    for line in text
+        .lines()
+        .filter(|l| !l.starts_with('#') && !l.starts_with("reynolds"))
+    {
         let v: Vec<f64> = line.split(',').map(|x| x.trim().parse().unwrap()).collect();
         let (re, ed, f_ref) = (v[0], v[1], v[2]);
         let (f, _) = friction::colebrook(re, ed).unwrap();
@@ -31,16 +34,19 @@ fn colebrook_matches_fluids_reference() {
 fn colebrook_agrees_with_moody_chart_readings() {
     let rows = [
         // Re, eps/D, f read from the chart
-        (1.0e5, 0.0, 0.018),  // smooth pipe
+        (1.0e5, 0.0, 0.018), // smooth pipe
         (1.0e6, 0.001, 0.020),
-        (1.0e8, 0.01, 0.038),  // fully rough
-        (1.0e8, 0.05, 0.072),  // fully rough, the chart's top curve
+        (1.0e8, 0.01, 0.038), // fully rough
+        (1.0e8, 0.05, 0.072), // fully rough, the chart's top curve
         (1.0e4, 0.0, 0.031),
     ];
     for (re, ed, chart) in rows {
         let (f, _, regime) = friction::darcy(re, ed).unwrap();
         assert_eq!(regime, Regime::Turbulent);
-        assert!((f - chart).abs() <= 0.05 * chart, "Re {re}, eps/D {ed}: {f} vs chart {chart}");
+        assert!(
+            (f - chart).abs() <= 0.05 * chart,
+            "Re {re}, eps/D {ed}: {f} vs chart {chart}"
+        );
     }
 }
 
@@ -63,14 +69,21 @@ fn hagen_poiseuille_exact_flow() {
     let (d, l, dp, mu, rho) = (0.01, 2.0, 1.0, 1.8e-5, 1.2);
     let prob = FlowProblem {
         nodes: vec![
-            NodeCondition::Fixed { pressure_pa: 101_326.0 },
-            NodeCondition::Fixed { pressure_pa: 101_325.0 },
+            NodeCondition::Fixed {
+                pressure_pa: 101_326.0,
+            },
+            NodeCondition::Fixed {
+                pressure_pa: 101_325.0,
+            },
         ],
         links: vec![Link {
             from: 0,
             to: 1,
             model: LinkModel::Incompressible {
-                pieces: vec![LossPiece { length_m: l, diameter_m: d }],
+                pieces: vec![LossPiece {
+                    length_m: l,
+                    diameter_m: d,
+                }],
                 roughness_m: 1e-5,
             },
         }],

@@ -27,8 +27,14 @@ fn oracle_reaches_the_source_in_every_demo() {
         assert_eq!(out.wall_strikes, 0, "{key}");
         assert!(out.min_standoff_m > 0.0, "{key}: {out:?}");
         // The oracle travels about the path length (it stops short of the node).
-        assert!(out.distance_travelled_m < out.true_path_length_m + 0.2, "{key}: {out:?}");
-        assert!(out.distance_travelled_m > out.true_path_length_m - 1.0, "{key}: {out:?}");
+        assert!(
+            out.distance_travelled_m < out.true_path_length_m + 0.2,
+            "{key}: {out:?}"
+        );
+        assert!(
+            out.distance_travelled_m > out.true_path_length_m - 1.0,
+            "{key}: {out:?}"
+        );
         // Minutes, not hours, of robot time.
         let t = out.reached_at_s.unwrap();
         assert!(t > 30.0 && t < 600.0, "{key}: {t} s");
@@ -42,7 +48,10 @@ fn speed_limit_and_hold() {
     let dt = sim.time_step_s();
     for _ in 0..100 {
         let before = sim.true_state().head_position_m;
-        sim.step(&MotionCommand { heading_map: [1.0, 0.0, 0.0], speed_m_per_s: 50.0 });
+        sim.step(&MotionCommand {
+            heading_map: [1.0, 0.0, 0.0],
+            speed_m_per_s: 50.0,
+        });
         let d = vec3::dist(before, sim.true_state().head_position_m);
         assert!(d <= vmax * dt * (1.0 + 1e-12), "{d}");
     }
@@ -65,17 +74,32 @@ fn the_slot_is_too_narrow() {
     assert_eq!(sc.nodes[path.source].id, "cold-cistern");
     assert!(!path.conduits.contains(&slot));
     let fork = sc.nodes.iter().find(|n| n.id == "fork").unwrap().position_m;
-    let spring = sc.nodes.iter().find(|n| n.id == "spring-chamber").unwrap().position_m;
+    let spring = sc
+        .nodes
+        .iter()
+        .find(|n| n.id == "spring-chamber")
+        .unwrap()
+        .position_m;
     // Drive to the fork along the drift, then straight at the spring.
     for _ in 0..6000 {
         let head = sim.true_state().head_position_m;
-        let target = if head[0] < fork[0] - 0.3 { fork } else { spring };
+        let target = if head[0] < fork[0] - 0.3 {
+            fork
+        } else {
+            spring
+        };
         let h = vec3::unit(vec3::sub(target, head)).unwrap();
-        sim.step(&MotionCommand { heading_map: h, speed_m_per_s: 0.3 });
+        sim.step(&MotionCommand {
+            heading_map: h,
+            speed_m_per_s: 0.3,
+        });
     }
     let out = sim.outcome();
     assert!(!out.reached_source);
-    assert!(out.wall_strikes >= 1 && out.wall_contact_steps > 100, "{out:?}");
+    assert!(
+        out.wall_strikes >= 1 && out.wall_contact_steps > 100,
+        "{out:?}"
+    );
     // The head never got more than a few centimetres into the slot.
     let g = &sim.world().geometry;
     let head = sim.true_state().head_position_m;
@@ -97,16 +121,29 @@ fn rot(q: [f64; 4]) -> Matrix3<f64> {
 /// true chain after a winding drive.
 #[test]
 fn reported_joints_follow_the_frame_convention() {
-    let text = demos::demo_text("saltpetre-drift").unwrap().to_string()
-        + "\n"; // sensors made ideal below
+    let text = demos::demo_text("saltpetre-drift").unwrap().to_string() + "\n"; // sensors made ideal below
     let text = text
-        .replace("position_walk_m_per_sqrt_m = 0.005", "position_walk_m_per_sqrt_m = 0.0")
-        .replace("attitude_walk_rad_per_sqrt_m = 0.002", "attitude_walk_rad_per_sqrt_m = 0.0")
+        .replace(
+            "position_walk_m_per_sqrt_m = 0.005",
+            "position_walk_m_per_sqrt_m = 0.0",
+        )
+        .replace(
+            "attitude_walk_rad_per_sqrt_m = 0.002",
+            "attitude_walk_rad_per_sqrt_m = 0.0",
+        )
         .replace("scale_error = 0.01", "scale_error = 0.0")
-        .replace("[sensors.contact]", "[sensors.joints]\nnoise_rad = 0.0\n\n[sensors.contact]");
+        .replace(
+            "[sensors.contact]",
+            "[sensors.joints]\nnoise_rad = 0.0\n\n[sensors.contact]",
+        );
     let mut sim = Sim::from_toml_str(&text).unwrap();
     let mut o = Oracle::new(&sim);
-    let lengths: Vec<f64> = sim.robot_spec().modules.iter().map(|m| m.length_m).collect();
+    let lengths: Vec<f64> = sim
+        .robot_spec()
+        .modules
+        .iter()
+        .map(|m| m.length_m)
+        .collect();
     let mut checked = 0;
     let mut max_bend: f64 = 0.0;
     for i in 0..8000 {
@@ -115,15 +152,22 @@ fn reported_joints_follow_the_frame_convention() {
         if i % 100 != 0 {
             continue;
         }
-        let (Some(pose), Some(joints)) = (f.pose, f.joints) else { continue };
+        let (Some(pose), Some(joints)) = (f.pose, f.joints) else {
+            continue;
+        };
         let mut r = rot(pose.orientation_wxyz);
         let mut p = Vector3::from(pose.position_m);
         for (k, j) in joints.iter().enumerate() {
             p += r * Vector3::new(-lengths[k], 0.0, 0.0);
-            r = r * Rotation3::from_axis_angle(&Vector3::z_axis(), j.yaw_rad).matrix()
+            r = r
+                * Rotation3::from_axis_angle(&Vector3::z_axis(), j.yaw_rad).matrix()
                 * Rotation3::from_axis_angle(&Vector3::y_axis(), j.pitch_rad).matrix();
             let truth = sim.body().origins[k + 1];
-            assert!((p - Vector3::from(truth)).norm() < 1e-9, "module {} at step {i}", k + 1);
+            assert!(
+                (p - Vector3::from(truth)).norm() < 1e-9,
+                "module {} at step {i}",
+                k + 1
+            );
             assert!((r - sim.body().rotations[k + 1]).norm() < 1e-9);
             max_bend = max_bend.max(j.yaw_rad.abs()).max(j.pitch_rad.abs());
         }
@@ -150,10 +194,16 @@ fn backing_out_retraces_the_trail() {
     }
     let axis = sim.body().head_axis();
     for _ in 0..300 {
-        sim.step(&MotionCommand { heading_map: vec3::scale(axis, -1.0), speed_m_per_s: 0.3 });
+        sim.step(&MotionCommand {
+            heading_map: vec3::scale(axis, -1.0),
+            speed_m_per_s: 0.3,
+        });
     }
     let head = sim.true_state().head_position_m;
-    let nearest = trail.iter().map(|p| vec3::dist(*p, head)).fold(f64::INFINITY, f64::min);
+    let nearest = trail
+        .iter()
+        .map(|p| vec3::dist(*p, head))
+        .fold(f64::INFINITY, f64::min);
     assert!(nearest < 0.01, "{nearest}");
     // 0.9 m back along a 1.5 m stretch of trail.
     assert!(vec3::dist(head, *trail.last().unwrap()) > 0.8);

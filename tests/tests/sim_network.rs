@@ -3,7 +3,8 @@
 
 use replay::sim::friction;
 use replay::sim::network::{
-    FlowError, FlowProblem, FlowSolution, LinearSolver, Link, LinkModel, LossPiece, NodeCondition, MASS_BALANCE_TOLERANCE,
+    FlowError, FlowProblem, FlowSolution, LinearSolver, Link, LinkModel, LossPiece,
+    MASS_BALANCE_TOLERANCE, NodeCondition,
 };
 use replay::sim::nozzle::Nozzle;
 use replay::sim::{demos, world::World};
@@ -13,7 +14,10 @@ fn pipe(from: usize, to: usize, l: f64, d: f64, eps: f64) -> Link {
         from,
         to,
         model: LinkModel::Incompressible {
-            pieces: vec![LossPiece { length_m: l, diameter_m: d }],
+            pieces: vec![LossPiece {
+                length_m: l,
+                diameter_m: d,
+            }],
             roughness_m: eps,
         },
     }
@@ -50,7 +54,10 @@ fn check_balance(prob: &FlowProblem, s: &FlowSolution) {
             let r = resid[i] + injection_kg_per_s;
             let half = 0.5 * (through[i] + injection_kg_per_s.abs());
             let scale = if half < 1e-3 * qmax { qmax } else { half };
-            assert!(r.abs() <= MASS_BALANCE_TOLERANCE * scale, "node {i}: residual {r} of {scale}");
+            assert!(
+                r.abs() <= MASS_BALANCE_TOLERANCE * scale,
+                "node {i}: residual {r} of {scale}"
+            );
         }
     }
 }
@@ -66,8 +73,12 @@ fn parallel_laminar_split_by_hand() {
     let feed = 1e-5; // kg/s, Re well below 2300
     let prob = problem(
         vec![
-            NodeCondition::Free { injection_kg_per_s: feed },
-            NodeCondition::Fixed { pressure_pa: 101_325.0 },
+            NodeCondition::Free {
+                injection_kg_per_s: feed,
+            },
+            NodeCondition::Fixed {
+                pressure_pa: 101_325.0,
+            },
         ],
         vec![pipe(0, 1, 10.0, 0.02, 0.0), pipe(0, 1, 2.5, 0.01, 0.0)],
         LinearSolver::Dense,
@@ -101,8 +112,12 @@ fn parallel_turbulent_pipes_by_hand() {
     let (d, eps) = (0.3, 0.003);
     let prob = problem(
         vec![
-            NodeCondition::Fixed { pressure_pa: 103_325.0 },
-            NodeCondition::Fixed { pressure_pa: 101_325.0 },
+            NodeCondition::Fixed {
+                pressure_pa: 103_325.0,
+            },
+            NodeCondition::Fixed {
+                pressure_pa: 101_325.0,
+            },
         ],
         vec![pipe(0, 1, 100.0, d, eps), pipe(0, 1, 400.0, d, eps)],
         LinearSolver::Dense,
@@ -138,8 +153,12 @@ fn demos_balance_mass_everywhere() {
 #[test]
 fn generated_networks_agree_between_solvers() {
     let (nodes, links) = ladder(67, 200);
-    let dense = problem(nodes.clone(), links.clone(), LinearSolver::Dense).solve().unwrap();
-    let cg = problem(nodes, links, LinearSolver::ConjugateGradient).solve().unwrap();
+    let dense = problem(nodes.clone(), links.clone(), LinearSolver::Dense)
+        .solve()
+        .unwrap();
+    let cg = problem(nodes, links, LinearSolver::ConjugateGradient)
+        .solve()
+        .unwrap();
     let span = 50.0;
     for (a, b) in dense.node_pressure_pa.iter().zip(&cg.node_pressure_pa) {
         assert!((a - b).abs() < 1e-7 * span, "{a} vs {b}");
@@ -154,9 +173,18 @@ fn generated_networks_agree_between_solvers() {
 /// Ladder: two rails of `n` nodes joined by rungs; a source at one end, an
 /// exit at the other, diameters varied deterministically.
 fn ladder(n: usize, total: usize) -> (Vec<NodeCondition>, Vec<Link>) {
-    let mut nodes = vec![NodeCondition::Free { injection_kg_per_s: 0.0 }; 2 * n];
-    nodes[0] = NodeCondition::Fixed { pressure_pa: 101_375.0 };
-    nodes[2 * n - 1] = NodeCondition::Fixed { pressure_pa: 101_325.0 };
+    let mut nodes = vec![
+        NodeCondition::Free {
+            injection_kg_per_s: 0.0
+        };
+        2 * n
+    ];
+    nodes[0] = NodeCondition::Fixed {
+        pressure_pa: 101_375.0,
+    };
+    nodes[2 * n - 1] = NodeCondition::Fixed {
+        pressure_pa: 101_325.0,
+    };
     let mut links = Vec::new();
     let dia = |k: usize| 0.2 + 0.15 * (((k * 7919) % 97) as f64 / 97.0);
     for i in 0..n - 1 {
@@ -181,10 +209,18 @@ fn failures_are_typed() {
     // A junction with no path to a fixed node: singular.
     let prob = problem(
         vec![
-            NodeCondition::Fixed { pressure_pa: 101_325.0 },
-            NodeCondition::Free { injection_kg_per_s: 0.0 },
-            NodeCondition::Free { injection_kg_per_s: 0.1 },
-            NodeCondition::Free { injection_kg_per_s: 0.0 },
+            NodeCondition::Fixed {
+                pressure_pa: 101_325.0,
+            },
+            NodeCondition::Free {
+                injection_kg_per_s: 0.0,
+            },
+            NodeCondition::Free {
+                injection_kg_per_s: 0.1,
+            },
+            NodeCondition::Free {
+                injection_kg_per_s: 0.0,
+            },
         ],
         vec![pipe(0, 1, 1.0, 0.1, 0.0), pipe(2, 3, 1.0, 0.1, 0.0)],
         LinearSolver::Dense,
@@ -193,25 +229,51 @@ fn failures_are_typed() {
     // Iteration cap.
     let mut prob = problem(
         vec![
-            NodeCondition::Fixed { pressure_pa: 102_325.0 },
-            NodeCondition::Free { injection_kg_per_s: 0.0 },
-            NodeCondition::Fixed { pressure_pa: 101_325.0 },
+            NodeCondition::Fixed {
+                pressure_pa: 102_325.0,
+            },
+            NodeCondition::Free {
+                injection_kg_per_s: 0.0,
+            },
+            NodeCondition::Fixed {
+                pressure_pa: 101_325.0,
+            },
         ],
         vec![pipe(0, 1, 10.0, 0.3, 0.003), pipe(1, 2, 10.0, 0.2, 0.003)],
         LinearSolver::Dense,
     );
     prob.max_iterations = 1;
-    assert!(matches!(prob.solve(), Err(FlowError::NoConvergence { iterations: 1, .. })));
+    assert!(matches!(
+        prob.solve(),
+        Err(FlowError::NoConvergence { iterations: 1, .. })
+    ));
     // A compressible link must start at a fixed-pressure reservoir.
-    let nz = Nozzle::new(vec![0.0, 1.0], vec![1.0, 2.0], nav_core::gas::IdealGas::DRY_AIR, 300.0).unwrap();
+    let nz = Nozzle::new(
+        vec![0.0, 1.0],
+        vec![1.0, 2.0],
+        nav_core::gas::IdealGas::DRY_AIR,
+        300.0,
+    )
+    .unwrap();
     let prob = problem(
         vec![
-            NodeCondition::Free { injection_kg_per_s: 1.0 },
-            NodeCondition::Fixed { pressure_pa: 101_325.0 },
+            NodeCondition::Free {
+                injection_kg_per_s: 1.0,
+            },
+            NodeCondition::Fixed {
+                pressure_pa: 101_325.0,
+            },
         ],
-        vec![Link { from: 0, to: 1, model: LinkModel::Compressible(nz) }],
+        vec![Link {
+            from: 0,
+            to: 1,
+            model: LinkModel::Compressible(nz),
+        }],
         LinearSolver::Dense,
     );
-    assert_eq!(prob.solve().unwrap_err(), FlowError::CompressibleNotFromReservoir { link: 0 });
+    assert_eq!(
+        prob.solve().unwrap_err(),
+        FlowError::CompressibleNotFromReservoir { link: 0 }
+    );
     assert!(friction::colebrook(-1.0, 0.0).is_err());
 }

@@ -76,7 +76,10 @@ fn base_and_demos_parse() {
         assert!(!sc.name.is_empty());
         Sim::new(sc).unwrap();
     }
-    assert!(matches!(Sim::from_demo("nope"), Err(SimError::UnknownDemo(_))));
+    assert!(matches!(
+        Sim::from_demo("nope"),
+        Err(SimError::UnknownDemo(_))
+    ));
 }
 
 #[test]
@@ -94,7 +97,10 @@ fn syntax_and_unknown_keys() {
     let e = err(&bad);
     assert_eq!(e.kind, K::Syntax);
     assert_eq!(e.line, 3);
-    let bad = BASE.replace("radius_m = 0.4\n\n[[conduit]]", "radius_m = 0.4\nwidth = 2\n\n[[conduit]]");
+    let bad = BASE.replace(
+        "radius_m = 0.4\n\n[[conduit]]",
+        "radius_m = 0.4\nwidth = 2\n\n[[conduit]]",
+    );
     let e = err(&bad);
     assert_eq!(e.kind, K::Syntax);
     assert_eq!(e.line, line_of(&bad, "width"));
@@ -108,7 +114,11 @@ fn non_positive_radius_points_at_the_value() {
     assert_eq!(e.kind, K::NonPositiveRadius);
     assert_eq!((e.line, e.column), (line_of(&bad, "radius_m = -0.1"), 12));
     assert_eq!(e.element, "conduit \"a\" radius_m");
-    let bad = BASE.replacen("radius_m = 0.4", "radius_profile = [[0.0, 0.4], [1.0, 0.0]]", 1);
+    let bad = BASE.replacen(
+        "radius_m = 0.4",
+        "radius_profile = [[0.0, 0.4], [1.0, 0.0]]",
+        1,
+    );
     let e = err(&bad);
     assert_eq!(e.kind, K::NonPositiveRadius);
     assert!(e.element.contains("radius_profile[1]"), "{e}");
@@ -147,7 +157,10 @@ fn no_exit_and_no_source() {
 
 #[test]
 fn start_outside_and_robot_too_wide() {
-    let bad = BASE.replace("position_m = [1.0, 0.0, 0.0]", "position_m = [1.0, 3.0, 0.0]");
+    let bad = BASE.replace(
+        "position_m = [1.0, 0.0, 0.0]",
+        "position_m = [1.0, 3.0, 0.0]",
+    );
     let e = err(&bad);
     assert_eq!(e.kind, K::StartOutside);
     assert_eq!(e.line, line_of(&bad, "position_m = [1.0, 3.0"));
@@ -157,7 +170,10 @@ fn start_outside_and_robot_too_wide() {
     assert_eq!(e.kind, K::RobotTooWide);
     assert!(e.reason.contains("wider than conduit \"a\""), "{e}");
     // The head fits the radius but its skin would cut the wall off-centre.
-    let bad = BASE.replace("position_m = [1.0, 0.0, 0.0]", "position_m = [1.0, 0.38, 0.0]");
+    let bad = BASE.replace(
+        "position_m = [1.0, 0.0, 0.0]",
+        "position_m = [1.0, 0.38, 0.0]",
+    );
     assert_eq!(err(&bad).kind, K::RobotTooWide);
 }
 
@@ -182,7 +198,8 @@ fn faults_must_name_real_ports_and_sensors() {
     let e = err(&bad);
     assert_eq!(e.kind, K::BadFault);
     assert_eq!(e.line, line_of(&bad, "port = 5"));
-    let bad = format!("{BASE}\n[[fault]]\nkind = \"contact_dead\"\nat_s = 1.0\nmodule = 1\nsensor = 0\n");
+    let bad =
+        format!("{BASE}\n[[fault]]\nkind = \"contact_dead\"\nat_s = 1.0\nmodule = 1\nsensor = 0\n");
     // The base robot has no sensor rings.
     assert_eq!(err(&bad).kind, K::BadFault);
     let bad = format!("{BASE}\n[[fault]]\nkind = \"melt\"\nat_s = 1.0\n");
@@ -193,5 +210,11 @@ fn faults_must_name_real_ports_and_sensors() {
 fn display_names_line_column_element_reason() {
     let bad = BASE.replacen("radius_m = 0.4", "radius_m = 0.0", 1);
     let text = err(&bad).to_string();
-    assert!(text.starts_with(&format!("line {}, column 12: conduit \"a\" radius_m: ", line_of(&bad, "radius_m = 0.0"))), "{text}");
+    assert!(
+        text.starts_with(&format!(
+            "line {}, column 12: conduit \"a\" radius_m: ",
+            line_of(&bad, "radius_m = 0.0")
+        )),
+        "{text}"
+    );
 }

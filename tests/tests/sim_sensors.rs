@@ -105,11 +105,19 @@ fn ideal_probe_follows_the_sphere_law() {
     let sim = tube(IDEAL);
     let st = sim.true_state();
     let v = st.flow.velocity_m_per_s;
-    assert!(v[0] < -0.5 && v[1].abs() < 1e-12 && v[2].abs() < 1e-12, "{v:?}");
+    assert!(
+        v[0] < -0.5 && v[1].abs() < 1e-12 && v[2].abs() < 1e-12,
+        "{v:?}"
+    );
     let p = st.flow.static_pressure_pa;
     let q = dp0(p, st.flow.density_kg_per_m3, v[0].abs());
     let f = ports(sim.frame());
-    assert!((f[0] - (p + q)).abs() < 1e-9 * q, "tip {} vs {}", f[0], p + q);
+    assert!(
+        (f[0] - (p + q)).abs() < 1e-9 * q,
+        "tip {} vs {}",
+        f[0],
+        p + q
+    );
     for side in &f[1..] {
         assert!((side - (p - q / 8.0)).abs() < 1e-9 * q);
     }
@@ -137,7 +145,11 @@ fn misalignment_shifts_the_side_ports() {
     ));
     let st = sim.true_state();
     let p = st.flow.static_pressure_pa;
-    let q = dp0(p, st.flow.density_kg_per_m3, st.flow.velocity_m_per_s[0].abs());
+    let q = dp0(
+        p,
+        st.flow.density_kg_per_m3,
+        st.flow.velocity_m_per_s[0].abs(),
+    );
     let f = ports(sim.frame());
     let cp = |deg: f64| 1.0 - 2.25 * deg.to_radians().sin().powi(2);
     assert!((f[1] - (p + q * cp(50.0))).abs() < 1e-9 * q, "+y port");
@@ -149,7 +161,10 @@ fn misalignment_shifts_the_side_ports() {
 /// plus the fixed bias.
 #[test]
 fn noise_and_bias_statistics() {
-    let mut sim = tube(&IDEAL.replace("noise_pa = 0.0", "noise_pa = 2.0\nbias_pa = [1.0, -1.0, 0.5, 0.0, 3.0]"));
+    let mut sim = tube(&IDEAL.replace(
+        "noise_pa = 0.0",
+        "noise_pa = 2.0\nbias_pa = [1.0, -1.0, 0.5, 0.0, 3.0]",
+    ));
     let truth = sim.sensors().truth_ports().to_vec();
     let n = 4000;
     let mut s = [0.0; 5];
@@ -213,7 +228,11 @@ fn blocked_and_stuck_ports() {
     let mut stuck = None;
     for i in 0..150 {
         // Hold until 0.5 s, then drive upstream (the ram effect raises the tip).
-        let cmd = if i < 50 { MotionCommand::hold() } else { forward(0.4) };
+        let cmd = if i < 50 {
+            MotionCommand::hold()
+        } else {
+            forward(0.4)
+        };
         let f = ports(sim.step(&cmd));
         let c = ports(control.step(&cmd));
         let t = sim.time_s();
@@ -223,7 +242,11 @@ fn blocked_and_stuck_ports() {
         }
         if t > 0.9 && t < 1.0 {
             let hold = at_onset.unwrap();
-            assert!((f[0] - hold).abs() < 3.0, "blocked port moved: {} vs {hold}", f[0]);
+            assert!(
+                (f[0] - hold).abs() < 3.0,
+                "blocked port moved: {} vs {hold}",
+                f[0]
+            );
             // The ram effect of 0.4 m/s into a 10 m/s stream lifts the
             // unblocked tip by about rho u dv = 1.2 * 10 * 0.4 = 5 Pa.
             assert!(c[0] > hold + 3.0, "control tip should rise");
@@ -258,7 +281,10 @@ fn contacts_from_wall_penetration_and_dead_sensor() {
         for c in &f.contacts {
             seen.insert((c.module, c.sensor));
             assert!(!(c.module == 0 && c.sensor == 0), "dead sensor reported");
-            assert!(c.force_n > 0.0 && c.force_n <= k * (compliance + 0.002), "{c:?}");
+            assert!(
+                c.force_n > 0.0 && c.force_n <= k * (compliance + 0.002),
+                "{c:?}"
+            );
             // The wall is on the +y side: the normal (skin toward wall)
             // points along the sensor's own outward normal.
             let s = spec.modules[c.module as usize].sensors[c.sensor as usize];
@@ -348,7 +374,9 @@ fn deterministic_for_a_seed_and_thread_count() {
         let b = h.join().unwrap();
         assert!(a == b, "parallel run differs");
     }
-    let text = replay::sim::demos::demo_text("wrens-slot").unwrap().replace("seed = 3303", "seed = 3304");
+    let text = replay::sim::demos::demo_text("wrens-slot")
+        .unwrap()
+        .replace("seed = 3303", "seed = 3304");
     let c = run(&mut Sim::from_toml_str(&text).unwrap(), 1500);
     assert!(a != c);
     // Same motion (the oracle uses the truth), different noise.

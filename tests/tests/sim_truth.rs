@@ -50,7 +50,12 @@ fn standoff_from_wall_samples_matches_geometry() {
     let sim = straight(0.01);
     let w = sim.walls();
     assert!(w.len() > 10_000);
-    for (x, y, z) in [(2.0, 0.1, 0.0), (3.0, -0.2, 0.05), (1.0, 0.0, 0.25), (4.5, 0.17, -0.17)] {
+    for (x, y, z) in [
+        (2.0, 0.1, 0.0),
+        (3.0, -0.2, 0.05),
+        (1.0, 0.0, 0.25),
+        (4.5, 0.17, -0.17),
+    ] {
         let rho = f64::hypot(y, z);
         let d = w.distance_m([x, y, z]);
         assert!(d >= 0.3 - rho - 1e-9, "{d}");
@@ -81,8 +86,15 @@ fn true_path_through_the_mine() {
     let sim = Sim::from_demo("saltpetre-drift").unwrap();
     let sc = sim.scenario();
     let p = sim.true_path().unwrap();
-    let ids: Vec<&str> = p.conduits.iter().map(|&c| sc.conduits[c].id.as_str()).collect();
-    assert_eq!(ids, ["main-drift", "north-drift", "upper-drift", "raise-drift"]);
+    let ids: Vec<&str> = p
+        .conduits
+        .iter()
+        .map(|&c| sc.conduits[c].id.as_str())
+        .collect();
+    assert_eq!(
+        ids,
+        ["main-drift", "north-drift", "upper-drift", "raise-drift"]
+    );
     assert_eq!(sc.nodes[p.source].id, "lamp-raise");
     assert!(p.passable);
     // The polyline starts at the start point's foot and ends at the source.
@@ -95,13 +107,30 @@ fn true_path_through_the_mine() {
 fn wrong_branch_is_counted_once_per_entry() {
     let mut sim = Sim::from_demo("saltpetre-drift").unwrap();
     let sc = sim.scenario().clone();
-    let cross = sc.nodes.iter().find(|n| n.id == "crosscut").unwrap().position_m;
-    let store = sc.nodes.iter().find(|n| n.id == "powder-store").unwrap().position_m;
+    let cross = sc
+        .nodes
+        .iter()
+        .find(|n| n.id == "crosscut")
+        .unwrap()
+        .position_m;
+    let store = sc
+        .nodes
+        .iter()
+        .find(|n| n.id == "powder-store")
+        .unwrap()
+        .position_m;
     for _ in 0..12_000 {
         let head = sim.true_state().head_position_m;
-        let target = if head[0] < cross[0] - 0.05 && head[1] < 0.2 { cross } else { store };
+        let target = if head[0] < cross[0] - 0.05 && head[1] < 0.2 {
+            cross
+        } else {
+            store
+        };
         let h = vec3::unit(vec3::sub(target, head)).unwrap_or([0.0, 1.0, 0.0]);
-        sim.step(&MotionCommand { heading_map: h, speed_m_per_s: 0.3 });
+        sim.step(&MotionCommand {
+            heading_map: h,
+            speed_m_per_s: 0.3,
+        });
     }
     let o = sim.outcome();
     assert_eq!(o.wrong_branches, 1, "{o:?}");

@@ -105,7 +105,9 @@ impl Body {
     /// Head orientation as a unit quaternion `[w, x, y, z]`.
     #[must_use]
     pub fn head_quaternion_wxyz(&self) -> [f64; 4] {
-        let q = UnitQuaternion::from_rotation_matrix(&Rotation3::from_matrix_unchecked(self.rotations[0]));
+        let q = UnitQuaternion::from_rotation_matrix(&Rotation3::from_matrix_unchecked(
+            self.rotations[0],
+        ));
         [q.w, q.i, q.j, q.k]
     }
 
@@ -138,7 +140,8 @@ impl Body {
             let n = (d / TRAIL_STEP_M).floor() as usize;
             for i in 1..=n {
                 let f = (i as f64 * TRAIL_STEP_M) / d;
-                self.trail.push_front(vec3::add(last, vec3::scale(vec3::sub(new_head, last), f)));
+                self.trail
+                    .push_front(vec3::add(last, vec3::scale(vec3::sub(new_head, last), f)));
             }
         }
         self.transport_head(old_axis);
@@ -180,7 +183,9 @@ impl Body {
         let mut left = dist_m;
         let mut pos = self.head;
         while self.trail.len() > 1 {
-            let Some(&next) = self.trail.front() else { break };
+            let Some(&next) = self.trail.front() else {
+                break;
+            };
             let d = vec3::dist(pos, next);
             if d > left {
                 pos = vec3::add(pos, vec3::scale(vec3::sub(next, pos), left / d));
@@ -197,7 +202,10 @@ impl Body {
     fn extend_tail(&mut self) {
         let n = self.trail.len();
         let (a, b) = match n {
-            0 => (vec3::axpy(self.head, TRAIL_STEP_M, self.head_axis()), self.head),
+            0 => (
+                vec3::axpy(self.head, TRAIL_STEP_M, self.head_axis()),
+                self.head,
+            ),
             1 => (self.head, self.trail[0]),
             _ => (self.trail[n - 2], self.trail[n - 1]),
         };
@@ -218,13 +226,17 @@ impl Body {
         let s = vec3::norm(ax);
         if s > 1e-15 {
             let angle = libm::atan2(s, c);
-            let rot = Rotation3::from_axis_angle(&nalgebra::Unit::new_unchecked(to_v(vec3::scale(ax, 1.0 / s))), angle);
+            let rot = Rotation3::from_axis_angle(
+                &nalgebra::Unit::new_unchecked(to_v(vec3::scale(ax, 1.0 / s))),
+                angle,
+            );
             self.rotations[0] = rot.matrix() * self.rotations[0];
         }
         // Re-orthonormalise against drift.
         let x = new_axis;
         let yc = self.rotations[0].column(1);
-        let y = vec3::unit(vec3::reject([yc[0], yc[1], yc[2]], x)).unwrap_or_else(|| vec3::perpendicular(x));
+        let y = vec3::unit(vec3::reject([yc[0], yc[1], yc[2]], x))
+            .unwrap_or_else(|| vec3::perpendicular(x));
         let z = vec3::cross(x, y);
         self.rotations[0] = Matrix3::from_columns(&[to_v(x), to_v(y), to_v(z)]);
         self.update_chain();
@@ -235,7 +247,11 @@ impl Body {
     /// distance `len` from `p`; returns it and the trail index reached.
     fn point_behind(&mut self, p: V3, from: usize, len: f64) -> (V3, usize) {
         let mut i = from;
-        let mut prev = if from == 0 { self.head } else { self.trail[from - 1] };
+        let mut prev = if from == 0 {
+            self.head
+        } else {
+            self.trail[from - 1]
+        };
         loop {
             if i >= self.trail.len() {
                 self.extend_tail();
@@ -250,7 +266,11 @@ impl Body {
                 let b = 2.0 * vec3::dot(f, d);
                 let c = vec3::dot(f, f) - len * len;
                 let disc = (b * b - 4.0 * a * c).max(0.0);
-                let t = if a > 0.0 { ((-b + libm::sqrt(disc)) / (2.0 * a)).clamp(0.0, 1.0) } else { 1.0 };
+                let t = if a > 0.0 {
+                    ((-b + libm::sqrt(disc)) / (2.0 * a)).clamp(0.0, 1.0)
+                } else {
+                    1.0
+                };
                 return (vec3::axpy(prev, t, d), i);
             }
             prev = q;
@@ -330,7 +350,12 @@ mod tests {
     #[test]
     fn chain_follows_convention_and_path() {
         let mut b = Body::straight(&[0.2, 0.2, 0.2], [0.0, 0.0, 0.0], [1.0, 0.0, 0.0]);
-        assert!((b.origins[2][0] + 0.4).abs() < 1e-12, "{:?} {:?}", b.origins, b.rotations[0]);
+        assert!(
+            (b.origins[2][0] + 0.4).abs() < 1e-12,
+            "{:?} {:?}",
+            b.origins,
+            b.rotations[0]
+        );
         // Drive a quarter circle of radius 1 m in the x-y plane.
         for i in 1..=400 {
             let a = f64::from(i) / 400.0 * core::f64::consts::FRAC_PI_2;

@@ -10,7 +10,10 @@ use super::scenario::{Scenario, ScenarioError};
 
 /// `(key, TOML text)` of every demo.
 pub const DEMOS: [(&str, &str); 3] = [
-    ("saltpetre-drift", include_str!("demos/saltpetre_drift.toml")),
+    (
+        "saltpetre-drift",
+        include_str!("demos/saltpetre_drift.toml"),
+    ),
     ("hollow-kettle", include_str!("demos/hollow_kettle.toml")),
     ("wrens-slot", include_str!("demos/wrens_slot.toml")),
 ];

@@ -58,9 +58,14 @@ pub enum FrictionError {
 impl core::fmt::Display for FrictionError {
     fn fmt(&self, f: &mut core::fmt::Formatter<'_>) -> core::fmt::Result {
         match self {
-            Self::BadReynolds { reynolds } => write!(f, "Reynolds number {reynolds} is not positive"),
+            Self::BadReynolds { reynolds } => {
+                write!(f, "Reynolds number {reynolds} is not positive")
+            }
             Self::BadRoughness { relative_roughness } => {
-                write!(f, "relative roughness {relative_roughness} is negative or not finite")
+                write!(
+                    f,
+                    "relative roughness {relative_roughness} is negative or not finite"
+                )
             }
             Self::NoConvergence {
                 reynolds,
@@ -90,7 +95,11 @@ pub fn colebrook(reynolds: f64, relative_roughness: f64) -> Result<(f64, f64), F
     let b = 2.51 / reynolds;
     // Swamee–Jain start: f = 0.25 / log10(eps/3.7D + 5.74/Re^0.9)^2.
     let sj = libm::log10(a + 5.74 / libm::pow(reynolds, 0.9));
-    let mut x = if sj.is_finite() && sj < 0.0 { -2.0 * sj } else { 8.0 };
+    let mut x = if sj.is_finite() && sj < 0.0 {
+        -2.0 * sj
+    } else {
+        8.0
+    };
     let mut converged = false;
     for _ in 0..COLEBROOK_MAX_ITERATIONS {
         let g = a + b * x;
@@ -133,7 +142,11 @@ pub fn darcy(reynolds: f64, relative_roughness: f64) -> Result<(f64, f64, Regime
         return Err(FrictionError::BadReynolds { reynolds });
     }
     if reynolds <= RE_LAMINAR_MAX {
-        return Ok((64.0 / reynolds, -64.0 / (reynolds * reynolds), Regime::Laminar));
+        return Ok((
+            64.0 / reynolds,
+            -64.0 / (reynolds * reynolds),
+            Regime::Laminar,
+        ));
     }
     if reynolds >= RE_TURBULENT_MIN {
         let (f, d) = colebrook(reynolds, relative_roughness)?;
@@ -161,7 +174,8 @@ mod tests {
             let rhs = -2.0 * libm::log10(e / 3.7 + 2.51 / (re * libm::sqrt(f)));
             assert!((lhs - rhs).abs() < 1e-12 * lhs);
             let h = re * 1e-6;
-            let num = (colebrook(re + h, e).unwrap().0 - colebrook(re - h, e).unwrap().0) / (2.0 * h);
+            let num =
+                (colebrook(re + h, e).unwrap().0 - colebrook(re - h, e).unwrap().0) / (2.0 * h);
             assert!((d - num).abs() <= 1e-5 * num.abs(), "{d} vs {num}");
         }
     }

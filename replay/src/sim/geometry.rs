@@ -344,7 +344,8 @@ impl Geometry {
     #[inline]
     #[must_use]
     pub fn clearance_m(&self, p: V3) -> f64 {
-        self.best_hit(p).map_or(f64::NEG_INFINITY, |h| h.clearance_m)
+        self.best_hit(p)
+            .map_or(f64::NEG_INFINITY, |h| h.clearance_m)
     }
 
     /// The best hit in each distinct conduit near `p`, written into `out`

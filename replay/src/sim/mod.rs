@@ -377,7 +377,8 @@ impl Sim {
         let dt = self.scenario.time_step_s;
         let before = self.body.head();
         let speed = if cmd.speed_m_per_s.is_finite() {
-            cmd.speed_m_per_s.clamp(0.0, self.scenario.robot.max_speed_m_per_s)
+            cmd.speed_m_per_s
+                .clamp(0.0, self.scenario.robot.max_speed_m_per_s)
         } else {
             0.0
         };
@@ -389,15 +390,25 @@ impl Sim {
             let axis = self.body.head_axis();
             if vec3::dot(want, axis) < -0.5 {
                 let g = &self.world.geometry;
-                let tail = self.scenario.robot.modules.last().map_or(0.0, |m| m.radius_m);
+                let tail = self
+                    .scenario
+                    .robot
+                    .modules
+                    .last()
+                    .map_or(0.0, |m| m.radius_m);
                 let need = tail - self.scenario.motion.skin_compliance_m;
-                self.body.retreat(speed * dt, &|p| clamp_point_opt(g, p, need).0);
+                self.body
+                    .retreat(speed * dt, &|p| clamp_point_opt(g, p, need).0);
                 self.travel_dir = self.body.head_axis();
                 if self.body.head() == before {
                     struck = true;
                 }
             } else {
-                self.travel_dir = turn_toward(self.travel_dir, want, self.scenario.motion.turn_rate_limit_rad_per_s * dt);
+                self.travel_dir = turn_toward(
+                    self.travel_dir,
+                    want,
+                    self.scenario.motion.turn_rate_limit_rad_per_s * dt,
+                );
                 let target = vec3::axpy(before, speed * dt, self.travel_dir);
                 let (to, hit_wall) = self.clamp_head(target);
                 struck = hit_wall;
@@ -420,7 +431,8 @@ impl Sim {
         self.steps += 1;
         // Time from the step count: no accumulated rounding.
         self.time_s = self.steps as f64 * dt;
-        self.sensors.integrate_odometry(&self.scenario, self.time_s, dt, disp);
+        self.sensors
+            .integrate_odometry(&self.scenario, self.time_s, dt, disp);
         self.sample = self.world.sample(after);
         self.score_position();
         self.sensors.produce(
@@ -536,7 +548,10 @@ fn turn_toward(from: V3, to: V3, max_rad: f64) -> V3 {
     let axis = vec3::unit(vec3::cross(from, to)).unwrap_or_else(|| vec3::perpendicular(from));
     // Rodrigues: from is perpendicular to axis.
     let (s, k) = (libm::sin(max_rad), libm::cos(max_rad));
-    let v = vec3::add(vec3::scale(from, k), vec3::scale(vec3::cross(axis, from), s));
+    let v = vec3::add(
+        vec3::scale(from, k),
+        vec3::scale(vec3::cross(axis, from), s),
+    );
     vec3::unit(v).unwrap_or(to)
 }
 
@@ -563,9 +578,9 @@ impl Oracle {
     /// An oracle for `sim`'s true path (holds at once if there is none).
     #[must_use]
     pub fn new(sim: &Sim) -> Self {
-        let (poly, arc) = sim
-            .true_path()
-            .map_or((Vec::new(), Vec::new()), |p| (p.polyline_m.clone(), p.arc_m.clone()));
+        let (poly, arc) = sim.true_path().map_or((Vec::new(), Vec::new()), |p| {
+            (p.polyline_m.clone(), p.arc_m.clone())
+        });
         Self {
             poly,
             arc,
@@ -644,7 +659,10 @@ impl Oracle {
         }
         self.idx = best.1;
         let s_target = self.arc[self.idx] + self.lookahead_m;
-        let j = self.arc.partition_point(|&s| s < s_target).min(self.poly.len() - 1);
+        let j = self
+            .arc
+            .partition_point(|&s| s < s_target)
+            .min(self.poly.len() - 1);
         let heading = vec3::unit(vec3::sub(self.poly[j], head)).unwrap_or([1.0, 0.0, 0.0]);
         MotionCommand {
             heading_map: heading,

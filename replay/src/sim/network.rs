@@ -196,7 +196,10 @@ impl core::fmt::Display for FlowError {
                 f,
                 "network flow did not converge in {iterations} iterations (last relative change {relative_change:.3e})"
             ),
-            Self::Singular => write!(f, "pressure system singular: some junction has no path to a source or exit"),
+            Self::Singular => write!(
+                f,
+                "pressure system singular: some junction has no path to a source or exit"
+            ),
             Self::Friction { link, error } => write!(f, "link {link}: {error}"),
             Self::Gas { link, error } => write!(f, "link {link}: gas relation failed: {error:?}"),
             Self::CompressibleNotFromReservoir { link } => write!(
@@ -205,7 +208,10 @@ impl core::fmt::Display for FlowError {
             ),
             Self::NonFinite { link } => write!(f, "link {link}: non-finite value"),
             Self::Imbalance { node, relative } => {
-                write!(f, "node {node}: mass imbalance {relative:.3e} after convergence")
+                write!(
+                    f,
+                    "node {node}: mass imbalance {relative:.3e} after convergence"
+                )
             }
         }
     }
@@ -243,7 +249,12 @@ fn piece_loss(
     }
     let (f, df, regime) = friction::darcy(re, roughness_m / d)?;
     let c = p.length_m / (2.0 * rho * a * a * d);
-    Ok((f * c * m * m.abs(), c * m.abs() * (2.0 * f + re * df), re, regime))
+    Ok((
+        f * c * m * m.abs(),
+        c * m.abs() * (2.0 * f + re * df),
+        re,
+        regime,
+    ))
 }
 
 fn link_loss(
@@ -307,7 +318,7 @@ impl System {
     /// Jacobi-preconditioned conjugate gradients from `x0`.
     fn solve_cg(&self, x0: &[f64]) -> Option<Vec<f64>> {
         let n = self.diag.len();
-        if self.diag.iter().any(|d| !(*d > 0.0)) {
+        if self.diag.iter().any(|d| d.is_nan() || *d <= 0.0) {
             return None;
         }
         let bnorm = libm::sqrt(self.rhs.iter().map(|v| v * v).sum::<f64>());
@@ -328,7 +339,7 @@ impl System {
             }
             self.apply(&p, &mut ap);
             let pap: f64 = p.iter().zip(&ap).map(|(a, b)| a * b).sum();
-            if !(pap > 0.0) {
+            if pap.is_nan() || pap <= 0.0 {
                 return None;
             }
             let alpha = rz / pap;
@@ -379,7 +390,11 @@ impl FlowProblem {
         }
         // Work in gauge pressure about the mean fixed pressure: differences
         // of a few pascals on 1e5 Pa would otherwise lose digits.
-        let p_ref = if nfixed > 0.0 { fixed_sum / nfixed } else { 0.0 };
+        let p_ref = if nfixed > 0.0 {
+            fixed_sum / nfixed
+        } else {
+            0.0
+        };
         for (i, c) in self.nodes.iter().enumerate() {
             p[i] = match c {
                 NodeCondition::Free { .. } => 0.0,
@@ -402,7 +417,8 @@ impl FlowProblem {
             .iter()
             .map(|l| match &l.model {
                 LinkModel::Incompressible { pieces, .. } => {
-                    let d = pieces.iter().map(|p| p.diameter_m).sum::<f64>() / pieces.len().max(1) as f64;
+                    let d = pieces.iter().map(|p| p.diameter_m).sum::<f64>()
+                        / pieces.len().max(1) as f64;
                     rho * core::f64::consts::PI * d * d / 4.0 * 0.1
                 }
                 LinkModel::Compressible(_) => 0.0,
@@ -552,7 +568,10 @@ impl FlowProblem {
                 let rel = resid[i].abs() / scale;
                 max_rel = max_rel.max(rel);
                 if rel > MASS_BALANCE_TOLERANCE {
-                    return Err(FlowError::Imbalance { node: i, relative: rel });
+                    return Err(FlowError::Imbalance {
+                        node: i,
+                        relative: rel,
+                    });
                 }
             }
         }
@@ -642,12 +661,24 @@ mod tests {
         // 0 (fixed) -> 1 -> 2 (fixed), plus a dead end 1 -> 3.
         let prob = FlowProblem {
             nodes: vec![
-                NodeCondition::Fixed { pressure_pa: 101_400.0 },
-                NodeCondition::Free { injection_kg_per_s: 0.0 },
-                NodeCondition::Fixed { pressure_pa: 101_300.0 },
-                NodeCondition::Free { injection_kg_per_s: 0.0 },
+                NodeCondition::Fixed {
+                    pressure_pa: 101_400.0,
+                },
+                NodeCondition::Free {
+                    injection_kg_per_s: 0.0,
+                },
+                NodeCondition::Fixed {
+                    pressure_pa: 101_300.0,
+                },
+                NodeCondition::Free {
+                    injection_kg_per_s: 0.0,
+                },
             ],
-            links: vec![pipe(0, 1, 10.0, 0.5), pipe(1, 2, 20.0, 0.5), pipe(1, 3, 5.0, 0.3)],
+            links: vec![
+                pipe(0, 1, 10.0, 0.5),
+                pipe(1, 2, 20.0, 0.5),
+                pipe(1, 3, 5.0, 0.3),
+            ],
             density_kg_per_m3: 1.2,
             viscosity_pa_s: 1.8e-5,
             max_iterations: 100,
@@ -655,7 +686,10 @@ mod tests {
         };
         let s = prob.solve().unwrap();
         let q = &s.links;
-        assert!((q[0].mass_flow_kg_per_s - q[1].mass_flow_kg_per_s).abs() < 1e-9 * q[0].mass_flow_kg_per_s);
+        assert!(
+            (q[0].mass_flow_kg_per_s - q[1].mass_flow_kg_per_s).abs()
+                < 1e-9 * q[0].mass_flow_kg_per_s
+        );
         assert!(q[2].mass_flow_kg_per_s.abs() < 1e-9 * q[0].mass_flow_kg_per_s);
         // Same pipe, same flow: the drop splits 1:2 by length.
         let p1 = s.node_pressure_pa[1];

@@ -217,7 +217,8 @@ impl Nozzle {
         // dmdot/dM = A p0/sqrt(RT0) sqrt(gamma) (1 - M^2) base^(-e-1), e = (g+1)/(2(g-1));
         // dpb/dM = -p0 gamma M base^(-g/(g-1)-1).
         let e = (gm + 1.0) / (2.0 * (gm - 1.0));
-        let dm_dmach = a_e * p0_pa / sq * libm::sqrt(gm) * (1.0 - m_e * m_e) * libm::pow(base, -e - 1.0);
+        let dm_dmach =
+            a_e * p0_pa / sq * libm::sqrt(gm) * (1.0 - m_e * m_e) * libm::pow(base, -e - 1.0);
         let dpb_dmach = -p0_pa * gm * m_e * libm::pow(base, -gm / (gm - 1.0) - 1.0);
         let slope = dm_dmach / dpb_dmach;
         if ratio > cap {
@@ -265,9 +266,9 @@ impl Nozzle {
             });
         }
         // Choked: subsonic up to the throat, supersonic after it.
-        for i in 0..n {
-            let ar = (self.area_m2[i] / a_t).max(1.0);
-            mach[i] = if i <= self.throat {
+        for (i, (m, a)) in mach.iter_mut().zip(&self.area_m2).enumerate() {
+            let ar = (a / a_t).max(1.0);
+            *m = if i <= self.throat {
                 g.mach_from_area_ratio_subsonic(ar)?
             } else {
                 g.mach_from_area_ratio_supersonic(ar)?
@@ -280,7 +281,8 @@ impl Nozzle {
                 let m1 = g.mach_from_area_ratio_supersonic((a_s / a_t).max(1.0))?;
                 let r = g.normal_shock_p02_over_p01(m1)?;
                 let a2_star = a_t / r;
-                let me = g.mach_from_area_ratio_subsonic((self.exit_area_m2() / a2_star).max(1.0))?;
+                let me =
+                    g.mach_from_area_ratio_subsonic((self.exit_area_m2() / a2_star).max(1.0))?;
                 Ok(r / g.p0_over_p(me)?)
             };
             let root = bracketed_root(
@@ -297,7 +299,8 @@ impl Nozzle {
                 if self.area_m2[i] >= a_s {
                     let (a0, a1) = (self.area_m2[i - 1], self.area_m2[i]);
                     let f = if a1 > a0 { (a_s - a0) / (a1 - a0) } else { 0.0 };
-                    s_sh = self.stations_m[i - 1] + f * (self.stations_m[i] - self.stations_m[i - 1]);
+                    s_sh =
+                        self.stations_m[i - 1] + f * (self.stations_m[i] - self.stations_m[i - 1]);
                     break;
                 }
             }
@@ -306,7 +309,8 @@ impl Nozzle {
             let a2_star = a_t / r;
             for i in self.throat + 1..n {
                 if self.stations_m[i] >= s_sh {
-                    mach[i] = g.mach_from_area_ratio_subsonic((self.area_m2[i] / a2_star).max(1.0))?;
+                    mach[i] =
+                        g.mach_from_area_ratio_subsonic((self.area_m2[i] / a2_star).max(1.0))?;
                     p0[i] = p0_pa * r;
                 }
             }
@@ -336,7 +340,13 @@ mod tests {
         let st: Vec<f64> = (0..=300).map(|i| f64::from(i) * 0.01).collect();
         let ar: Vec<f64> = st
             .iter()
-            .map(|&s| if s <= 1.0 { 2.0 - s } else { 1.0 + 1.5 * (s - 1.0) })
+            .map(|&s| {
+                if s <= 1.0 {
+                    2.0 - s
+                } else {
+                    1.0 + 1.5 * (s - 1.0)
+                }
+            })
             .collect();
         Nozzle::new(st, ar, IdealGas::DRY_AIR, 300.0).unwrap()
     }

@@ -31,14 +31,21 @@ pub fn port_normals(layout: &ProbeLayoutSpec) -> Vec<V3> {
         let mut v = vec![[1.0, 0.0, 0.0]];
         for i in 0..k {
             let phi = 2.0 * core::f64::consts::PI * f64::from(i) / f64::from(k);
-            v.push([libm::cos(c), libm::sin(c) * libm::cos(phi), libm::sin(c) * libm::sin(phi)]);
+            v.push([
+                libm::cos(c),
+                libm::sin(c) * libm::cos(phi),
+                libm::sin(c) * libm::sin(phi),
+            ]);
         }
         v
     };
     match layout {
         ProbeLayoutSpec::FivePort { cone_angle_deg } => cone(*cone_angle_deg, 4),
         ProbeLayoutSpec::SevenPort { cone_angle_deg } => cone(*cone_angle_deg, 6),
-        ProbeLayoutSpec::Custom { normals } => normals.iter().map(|n| vec3::unit(*n).unwrap_or([1.0, 0.0, 0.0])).collect(),
+        ProbeLayoutSpec::Custom { normals } => normals
+            .iter()
+            .map(|n| vec3::unit(*n).unwrap_or([1.0, 0.0, 0.0]))
+            .collect(),
     }
 }
 
@@ -60,7 +67,7 @@ pub fn port_pressures(
     let speed = vec3::norm(v_rel);
     let a = libm::sqrt(gas.gamma() * p_static_pa / density_kg_per_m3);
     let mach = speed / a;
-    if !(speed > 1e-12) || !mach.is_finite() {
+    if speed.is_nan() || speed <= 1e-12 || !mach.is_finite() {
         for o in out.iter_mut() {
             *o = p_static_pa;
         }
@@ -69,7 +76,8 @@ pub fn port_pressures(
     let vh = vec3::scale(v_rel, 1.0 / speed);
     let g = gas.gamma();
     if mach < 1.0 {
-        let dp0 = p_static_pa * (libm::pow(1.0 + 0.5 * (g - 1.0) * mach * mach, g / (g - 1.0)) - 1.0);
+        let dp0 =
+            p_static_pa * (libm::pow(1.0 + 0.5 * (g - 1.0) * mach * mach, g / (g - 1.0)) - 1.0);
         for (o, n) in out.iter_mut().zip(normals) {
             let c = -vec3::dot(*n, vh);
             let s2 = (1.0 - c * c).max(0.0);
@@ -79,7 +87,11 @@ pub fn port_pressures(
         let p02 = p_static_pa * gas.rayleigh_pitot_p02_over_p1(mach).unwrap_or(1.0);
         for (o, n) in out.iter_mut().zip(normals) {
             let c = -vec3::dot(*n, vh);
-            *o = if c > 0.0 { p_static_pa + (p02 - p_static_pa) * c * c } else { p_static_pa };
+            *o = if c > 0.0 {
+                p_static_pa + (p02 - p_static_pa) * c * c
+            } else {
+                p_static_pa
+            };
         }
     }
 }
@@ -90,12 +102,16 @@ mod tests {
 
     #[test]
     fn layouts_follow_the_convention() {
-        let n5 = port_normals(&ProbeLayoutSpec::FivePort { cone_angle_deg: 45.0 });
+        let n5 = port_normals(&ProbeLayoutSpec::FivePort {
+            cone_angle_deg: 45.0,
+        });
         assert_eq!(n5.len(), 5);
         let s = libm::sqrt(0.5);
         // Port 2 at phi = 90 deg: (cos 45, 0, sin 45).
         assert!(vec3::dist(n5[2], [s, 0.0, s]) < 1e-15);
-        let n7 = port_normals(&ProbeLayoutSpec::SevenPort { cone_angle_deg: 40.0 });
+        let n7 = port_normals(&ProbeLayoutSpec::SevenPort {
+            cone_angle_deg: 40.0,
+        });
         assert_eq!(n7.len(), 7);
         assert!((n7[1][1] - libm::sin(40f64.to_radians())).abs() < 1e-15);
     }
@@ -103,7 +119,9 @@ mod tests {
     #[test]
     fn sphere_law_and_newtonian() {
         let g = IdealGas::DRY_AIR;
-        let normals = port_normals(&ProbeLayoutSpec::FivePort { cone_angle_deg: 45.0 });
+        let normals = port_normals(&ProbeLayoutSpec::FivePort {
+            cone_angle_deg: 45.0,
+        });
         let mut out = [0.0; 5];
         // Low Mach head-on: tip sees q (Cp = 1), cone ports Cp = 1 - 9/4 * 1/2 = -1/8.
         let (p, t) = (1e5, 300.0);

@@ -64,7 +64,11 @@ impl NormalRng {
     /// Normal with standard deviation `sigma` (zero when `sigma` is zero,
     /// without drawing).
     pub fn gauss(&mut self, sigma: f64) -> f64 {
-        if sigma == 0.0 { 0.0 } else { sigma * self.normal() }
+        if sigma == 0.0 {
+            0.0
+        } else {
+            sigma * self.normal()
+        }
     }
 
     /// True with probability `p` (no draw when `p` is zero).

@@ -134,7 +134,9 @@ pub fn line_column(src: &str, offset: usize) -> (usize, usize) {
     let before = src.get(..offset).unwrap_or(src);
     let line = before.matches('\n').count() + 1;
     let line_start = before.rfind('\n').map_or(0, |i| i + 1);
-    let column = src.get(line_start..offset).map_or(1, |s| s.chars().count() + 1);
+    let column = src
+        .get(line_start..offset)
+        .map_or(1, |s| s.chars().count() + 1);
     (line, column)
 }
 
@@ -436,7 +438,10 @@ impl NodeKind {
     /// Whether the node is a source of either kind.
     #[must_use]
     pub fn is_source(&self) -> bool {
-        matches!(self, Self::ReservoirSource { .. } | Self::MassFlowSource { .. })
+        matches!(
+            self,
+            Self::ReservoirSource { .. } | Self::MassFlowSource { .. }
+        )
     }
 }
 
@@ -704,11 +709,21 @@ fn finite_pos(
     if x.is_finite() && x > 0.0 {
         Ok(x)
     } else {
-        Err(ctx.err(kind, v.span(), element, format!("must be finite and positive, got {x}")))
+        Err(ctx.err(
+            kind,
+            v.span(),
+            element,
+            format!("must be finite and positive, got {x}"),
+        ))
     }
 }
 
-fn finite_nonneg(ctx: &Ctx, v: f64, span: core::ops::Range<usize>, element: &str) -> Result<f64, ScenarioError> {
+fn finite_nonneg(
+    ctx: &Ctx,
+    v: f64,
+    span: core::ops::Range<usize>,
+    element: &str,
+) -> Result<f64, ScenarioError> {
     if v.is_finite() && v >= 0.0 {
         Ok(v)
     } else {
@@ -858,18 +873,38 @@ impl Scenario {
                 "junction" => NodeKind::Junction,
                 "exit" => {
                     let Some(p) = &n.ambient_pressure_pa else {
-                        return Err(ctx.err(K::BadValue, kind_span, el, "an exit needs ambient_pressure_pa"));
+                        return Err(ctx.err(
+                            K::BadValue,
+                            kind_span,
+                            el,
+                            "an exit needs ambient_pressure_pa",
+                        ));
                     };
                     NodeKind::Exit {
-                        ambient_pressure_pa: finite_pos(&ctx, p, &format!("{el} ambient_pressure_pa"), K::BadValue)?,
+                        ambient_pressure_pa: finite_pos(
+                            &ctx,
+                            p,
+                            &format!("{el} ambient_pressure_pa"),
+                            K::BadValue,
+                        )?,
                     }
                 }
                 "source" => match (&n.stagnation_pressure_pa, &n.mass_flow_kg_per_s) {
                     (Some(p), None) => NodeKind::ReservoirSource {
-                        stagnation_pressure_pa: finite_pos(&ctx, p, &format!("{el} stagnation_pressure_pa"), K::BadValue)?,
+                        stagnation_pressure_pa: finite_pos(
+                            &ctx,
+                            p,
+                            &format!("{el} stagnation_pressure_pa"),
+                            K::BadValue,
+                        )?,
                     },
                     (None, Some(m)) => NodeKind::MassFlowSource {
-                        mass_flow_kg_per_s: finite_pos(&ctx, m, &format!("{el} mass_flow_kg_per_s"), K::BadValue)?,
+                        mass_flow_kg_per_s: finite_pos(
+                            &ctx,
+                            m,
+                            &format!("{el} mass_flow_kg_per_s"),
+                            K::BadValue,
+                        )?,
                     },
                     _ => {
                         return Err(ctx.err(
@@ -889,7 +924,11 @@ impl Scenario {
                     ));
                 }
             };
-            nodes.push(Node { id, position_m, kind });
+            nodes.push(Node {
+                id,
+                position_m,
+                kind,
+            });
         }
 
         // [[conduit]]
@@ -915,7 +954,12 @@ impl Scenario {
             let from = look(&c.from, "from")?;
             let to = look(&c.to, "to")?;
             if from == to {
-                return Err(ctx.err(K::BadValue, c.to.span(), format!("{el} to"), "a conduit must join two different nodes"));
+                return Err(ctx.err(
+                    K::BadValue,
+                    c.to.span(),
+                    format!("{el} to"),
+                    "a conduit must join two different nodes",
+                ));
             }
             let mut pts = vec![nodes[from].position_m];
             for v in &c.via_m {
@@ -924,42 +968,77 @@ impl Scenario {
             pts.push(nodes[to].position_m);
             for (k, w) in pts.windows(2).enumerate() {
                 if vec3::dist(w[0], w[1]) < 1e-6 {
-                    let span = if k == 0 { c.from.span() } else { c.via_m[k - 1].span() };
-                    return Err(ctx.err(K::BadValue, span, format!("{el} centreline"), "two consecutive centreline points coincide"));
+                    let span = if k == 0 {
+                        c.from.span()
+                    } else {
+                        c.via_m[k - 1].span()
+                    };
+                    return Err(ctx.err(
+                        K::BadValue,
+                        span,
+                        format!("{el} centreline"),
+                        "two consecutive centreline points coincide",
+                    ));
                 }
             }
             let radius_profile = match (&c.radius_m, &c.radius_profile) {
                 (Some(r), None) => {
-                    vec![(0.0, finite_pos(&ctx, r, &format!("{el} radius_m"), K::NonPositiveRadius)?)]
+                    vec![(
+                        0.0,
+                        finite_pos(&ctx, r, &format!("{el} radius_m"), K::NonPositiveRadius)?,
+                    )]
                 }
                 (None, Some(prof)) => {
                     let pv = prof.get_ref();
                     if pv.len() < 2 {
-                        return Err(ctx.err(K::BadValue, prof.span(), format!("{el} radius_profile"), "needs at least two [fraction, radius_m] entries"));
+                        return Err(ctx.err(
+                            K::BadValue,
+                            prof.span(),
+                            format!("{el} radius_profile"),
+                            "needs at least two [fraction, radius_m] entries",
+                        ));
                     }
                     let mut out = Vec::with_capacity(pv.len());
                     for (k, e) in pv.iter().enumerate() {
                         let [f, r] = *e.get_ref();
                         if !(r.is_finite() && r > 0.0) {
-                            return Err(ctx.err(K::NonPositiveRadius, e.span(), format!("{el} radius_profile[{k}]"), format!("radius must be finite and positive, got {r}")));
+                            return Err(ctx.err(
+                                K::NonPositiveRadius,
+                                e.span(),
+                                format!("{el} radius_profile[{k}]"),
+                                format!("radius must be finite and positive, got {r}"),
+                            ));
                         }
                         let ok_f = f.is_finite()
                             && (0.0..=1.0).contains(&f)
-                            && (k == 0 && f == 0.0 || k > 0 && f > out.last().map_or(0.0, |x: &(f64, f64)| x.0))
+                            && (k == 0 && f == 0.0
+                                || k > 0 && f > out.last().map_or(0.0, |x: &(f64, f64)| x.0))
                             && (k + 1 < pv.len() || f == 1.0);
                         if !ok_f {
-                            return Err(ctx.err(K::BadValue, e.span(), format!("{el} radius_profile[{k}]"), "fractions must rise strictly from 0.0 to 1.0"));
+                            return Err(ctx.err(
+                                K::BadValue,
+                                e.span(),
+                                format!("{el} radius_profile[{k}]"),
+                                "fractions must rise strictly from 0.0 to 1.0",
+                            ));
                         }
                         out.push((f, r));
                     }
                     out
                 }
                 _ => {
-                    return Err(ctx.err(K::BadValue, c.id.span(), el, "give exactly one of radius_m and radius_profile"));
+                    return Err(ctx.err(
+                        K::BadValue,
+                        c.id.span(),
+                        el,
+                        "give exactly one of radius_m and radius_profile",
+                    ));
                 }
             };
             let roughness_m = match &c.roughness_m {
-                Some(r) => finite_nonneg(&ctx, *r.get_ref(), r.span(), &format!("{el} roughness_m"))?,
+                Some(r) => {
+                    finite_nonneg(&ctx, *r.get_ref(), r.span(), &format!("{el} roughness_m"))?
+                }
                 None => 1e-3,
             };
             let compressible = c.compressible.as_ref().is_some_and(|b| *b.get_ref());
@@ -975,8 +1054,13 @@ impl Scenario {
                 }
                 // One throat: radius falls, then rises.
                 let rs: Vec<f64> = radius_profile.iter().map(|x| x.1).collect();
-                let imin = rs.iter().enumerate().min_by(|a, b| a.1.total_cmp(b.1)).map_or(0, |x| x.0);
-                let bad = (1..=imin).any(|i| rs[i] > rs[i - 1]) || (imin + 1..rs.len()).any(|i| rs[i] < rs[i - 1]);
+                let imin = rs
+                    .iter()
+                    .enumerate()
+                    .min_by(|a, b| a.1.total_cmp(b.1))
+                    .map_or(0, |x| x.0);
+                let bad = (1..=imin).any(|i| rs[i] > rs[i - 1])
+                    || (imin + 1..rs.len()).any(|i| rs[i] < rs[i - 1]);
                 if bad {
                     return Err(ctx.err(
                         K::BadCompressible,
@@ -1002,7 +1086,12 @@ impl Scenario {
         // Network checks.
         let whole = doc.scenario.span();
         if nodes.is_empty() || conduits.is_empty() {
-            return Err(ctx.err(K::Disconnected, whole, "network", "needs at least two nodes and one conduit"));
+            return Err(ctx.err(
+                K::Disconnected,
+                whole,
+                "network",
+                "needs at least two nodes and one conduit",
+            ));
         }
         let mut adj = vec![Vec::new(); nodes.len()];
         for c in &conduits {
@@ -1025,19 +1114,40 @@ impl Scenario {
                 K::Disconnected,
                 doc.node[i].get_ref().id.span(),
                 format!("node {:?}", nodes[i].id),
-                format!("not connected to node {:?}: the network is disconnected", nodes[0].id),
+                format!(
+                    "not connected to node {:?}: the network is disconnected",
+                    nodes[0].id
+                ),
             ));
         }
-        if !nodes.iter().any(|n| matches!(n.kind, NodeKind::Exit { .. })) {
-            return Err(ctx.err(K::NoExit, doc.node[0].span(), "network", "no exit: every network needs at least one node with kind = \"exit\""));
+        if !nodes
+            .iter()
+            .any(|n| matches!(n.kind, NodeKind::Exit { .. }))
+        {
+            return Err(ctx.err(
+                K::NoExit,
+                doc.node[0].span(),
+                "network",
+                "no exit: every network needs at least one node with kind = \"exit\"",
+            ));
         }
         if !nodes.iter().any(|n| n.kind.is_source()) {
-            return Err(ctx.err(K::NoSource, doc.node[0].span(), "network", "no source: nothing drives the flow and nothing can be found"));
+            return Err(ctx.err(
+                K::NoSource,
+                doc.node[0].span(),
+                "network",
+                "no source: nothing drives the flow and nothing can be found",
+            ));
         }
 
         // [robot]
         let rd = doc.robot.get_ref();
-        let speed = finite_pos(&ctx, &rd.speed_limit_m_per_s, "robot.speed_limit_m_per_s", K::BadValue)?;
+        let speed = finite_pos(
+            &ctx,
+            &rd.speed_limit_m_per_s,
+            "robot.speed_limit_m_per_s",
+            K::BadValue,
+        )?;
         let turn = match &rd.turn_rate_limit_rad_per_s {
             Some(v) => finite_pos(&ctx, v, "robot.turn_rate_limit_rad_per_s", K::BadValue)?,
             None => 1.5,
@@ -1048,13 +1158,20 @@ impl Scenario {
         };
         let mut modules = Vec::new();
         if rd.module.is_empty() {
-            let (Some(n), Some(l), Some(r)) = (&rd.module_count, &rd.module_length_m, &rd.module_radius_m) else {
+            let (Some(n), Some(l), Some(r)) =
+                (&rd.module_count, &rd.module_length_m, &rd.module_radius_m)
+            else {
                 return Err(ctx.err(K::BadValue, doc.robot.span(), "robot", "give module_count, module_length_m and module_radius_m, or [[robot.module]] tables"));
             };
             let l = finite_pos(&ctx, l, "robot.module_length_m", K::BadValue)?;
             let r = finite_pos(&ctx, r, "robot.module_radius_m", K::NonPositiveRadius)?;
             if *n.get_ref() == 0 || *n.get_ref() > 64 {
-                return Err(ctx.err(K::BadValue, n.span(), "robot.module_count", "must be 1..=64"));
+                return Err(ctx.err(
+                    K::BadValue,
+                    n.span(),
+                    "robot.module_count",
+                    "must be 1..=64",
+                ));
             }
             let sensors = ring_sensors(&ctx, &rd.ring, l, "robot")?;
             for _ in 0..*n.get_ref() {
@@ -1066,13 +1183,23 @@ impl Scenario {
             }
         } else {
             if rd.module.len() > 64 {
-                return Err(ctx.err(K::BadValue, rd.module[64].span(), "robot.module", "at most 64 modules"));
+                return Err(ctx.err(
+                    K::BadValue,
+                    rd.module[64].span(),
+                    "robot.module",
+                    "at most 64 modules",
+                ));
             }
             for (k, m) in rd.module.iter().enumerate() {
                 let md = m.get_ref();
                 let el = format!("robot.module[{k}]");
                 let l = finite_pos(&ctx, &md.length_m, &format!("{el} length_m"), K::BadValue)?;
-                let r = finite_pos(&ctx, &md.radius_m, &format!("{el} radius_m"), K::NonPositiveRadius)?;
+                let r = finite_pos(
+                    &ctx,
+                    &md.radius_m,
+                    &format!("{el} radius_m"),
+                    K::NonPositiveRadius,
+                )?;
                 let rings = md.ring.as_ref().unwrap_or(&rd.ring);
                 let sensors = ring_sensors(&ctx, rings, l, &el)?;
                 modules.push(ModuleSpec {
@@ -1083,9 +1210,19 @@ impl Scenario {
             }
         }
         let pd = doc.robot.get_ref().probe.get_ref();
-        let head_radius_m = finite_pos(&ctx, &pd.head_radius_m, "robot.probe.head_radius_m", K::NonPositiveRadius)?;
+        let head_radius_m = finite_pos(
+            &ctx,
+            &pd.head_radius_m,
+            "robot.probe.head_radius_m",
+            K::NonPositiveRadius,
+        )?;
         if head_radius_m > modules[0].radius_m {
-            return Err(ctx.err(K::BadValue, pd.head_radius_m.span(), "robot.probe.head_radius_m", "the probe head is wider than the head module"));
+            return Err(ctx.err(
+                K::BadValue,
+                pd.head_radius_m.span(),
+                "robot.probe.head_radius_m",
+                "the probe head is wider than the head module",
+            ));
         }
         let cone = |default: f64| -> Result<f64, ScenarioError> {
             match &pd.cone_angle_deg {
@@ -1094,28 +1231,52 @@ impl Scenario {
                     if v.is_finite() && v > 0.0 && v < 90.0 {
                         Ok(v)
                     } else {
-                        Err(ctx.err(K::BadValue, c.span(), "robot.probe.cone_angle_deg", "must lie in (0, 90) deg"))
+                        Err(ctx.err(
+                            K::BadValue,
+                            c.span(),
+                            "robot.probe.cone_angle_deg",
+                            "must lie in (0, 90) deg",
+                        ))
                     }
                 }
                 None => Ok(default),
             }
         };
         let layout = match pd.layout.get_ref().as_str() {
-            "five_port" => ProbeLayoutSpec::FivePort { cone_angle_deg: cone(45.0)? },
-            "seven_port" => ProbeLayoutSpec::SevenPort { cone_angle_deg: cone(40.0)? },
+            "five_port" => ProbeLayoutSpec::FivePort {
+                cone_angle_deg: cone(45.0)?,
+            },
+            "seven_port" => ProbeLayoutSpec::SevenPort {
+                cone_angle_deg: cone(40.0)?,
+            },
             "custom" => {
                 let Some(ns) = &pd.normals else {
-                    return Err(ctx.err(K::BadValue, pd.layout.span(), "robot.probe", "a custom layout needs normals"));
+                    return Err(ctx.err(
+                        K::BadValue,
+                        pd.layout.span(),
+                        "robot.probe",
+                        "a custom layout needs normals",
+                    ));
                 };
                 let mut out = Vec::new();
                 for n in ns.get_ref() {
                     let Some(u) = vec3::unit(*n) else {
-                        return Err(ctx.err(K::BadValue, ns.span(), "robot.probe.normals", "a port normal is zero"));
+                        return Err(ctx.err(
+                            K::BadValue,
+                            ns.span(),
+                            "robot.probe.normals",
+                            "a port normal is zero",
+                        ));
                     };
                     out.push(u);
                 }
                 if out.is_empty() {
-                    return Err(ctx.err(K::BadValue, ns.span(), "robot.probe.normals", "needs at least one port"));
+                    return Err(ctx.err(
+                        K::BadValue,
+                        ns.span(),
+                        "robot.probe.normals",
+                        "needs at least one port",
+                    ));
                 }
                 ProbeLayoutSpec::Custom { normals: out }
             }
@@ -1124,7 +1285,9 @@ impl Scenario {
                     K::BadValue,
                     pd.layout.span(),
                     "robot.probe.layout",
-                    format!("unknown layout {other:?}: use \"five_port\", \"seven_port\" or \"custom\""),
+                    format!(
+                        "unknown layout {other:?}: use \"five_port\", \"seven_port\" or \"custom\""
+                    ),
                 ));
             }
         };
@@ -1132,7 +1295,10 @@ impl Scenario {
 
         // [sensors]
         let sd = &doc.sensors;
-        let prob = |p: Option<f64>, span: core::ops::Range<usize>, el: &str| -> Result<f64, ScenarioError> {
+        let prob = |p: Option<f64>,
+                    span: core::ops::Range<usize>,
+                    el: &str|
+         -> Result<f64, ScenarioError> {
             let v = p.unwrap_or(0.0);
             if (0.0..=1.0).contains(&v) {
                 Ok(v)
@@ -1143,12 +1309,27 @@ impl Scenario {
         let pn = sd.probe.as_ref();
         let pspan = pn.map_or(0..0, |p| p.span());
         let pv = pn.map(|p| p.get_ref());
-        let noise_pa = finite_nonneg(&ctx, pv.and_then(|p| p.noise_pa).unwrap_or(0.5), pspan.clone(), "sensors.probe.noise_pa")?;
-        let bias_sigma = finite_nonneg(&ctx, pv.and_then(|p| p.bias_sigma_pa).unwrap_or(0.0), pspan.clone(), "sensors.probe.bias_sigma_pa")?;
+        let noise_pa = finite_nonneg(
+            &ctx,
+            pv.and_then(|p| p.noise_pa).unwrap_or(0.5),
+            pspan.clone(),
+            "sensors.probe.noise_pa",
+        )?;
+        let bias_sigma = finite_nonneg(
+            &ctx,
+            pv.and_then(|p| p.bias_sigma_pa).unwrap_or(0.0),
+            pspan.clone(),
+            "sensors.probe.bias_sigma_pa",
+        )?;
         let bias_pa = match pv.and_then(|p| p.bias_pa.clone()) {
             Some(b) => {
                 if b.len() != nports || b.iter().any(|x| !x.is_finite()) {
-                    return Err(ctx.err(K::BadValue, pspan, "sensors.probe.bias_pa", format!("needs {nports} finite values, one per port")));
+                    return Err(ctx.err(
+                        K::BadValue,
+                        pspan,
+                        "sensors.probe.bias_pa",
+                        format!("needs {nports} finite values, one per port"),
+                    ));
                 }
                 b
             }
@@ -1160,45 +1341,127 @@ impl Scenario {
         let probe = ProbeNoise {
             noise_pa,
             bias_pa,
-            latency_s: finite_nonneg(&ctx, pv.and_then(|p| p.latency_s).unwrap_or(0.0), pspan.clone(), "sensors.probe.latency_s")?,
-            time_constant_s: finite_nonneg(&ctx, pv.and_then(|p| p.time_constant_s).unwrap_or(0.0), pspan.clone(), "sensors.probe.time_constant_s")?,
+            latency_s: finite_nonneg(
+                &ctx,
+                pv.and_then(|p| p.latency_s).unwrap_or(0.0),
+                pspan.clone(),
+                "sensors.probe.latency_s",
+            )?,
+            time_constant_s: finite_nonneg(
+                &ctx,
+                pv.and_then(|p| p.time_constant_s).unwrap_or(0.0),
+                pspan.clone(),
+                "sensors.probe.time_constant_s",
+            )?,
             misalignment_deg: pv.and_then(|p| p.misalignment_deg).unwrap_or([0.0; 3]),
-            dropout_probability: prob(pv.and_then(|p| p.dropout_probability), pspan.clone(), "sensors.probe.dropout_probability")?,
+            dropout_probability: prob(
+                pv.and_then(|p| p.dropout_probability),
+                pspan.clone(),
+                "sensors.probe.dropout_probability",
+            )?,
         };
-        if probe.misalignment_deg.iter().any(|a| !(a.is_finite() && a.abs() <= 45.0)) {
-            return Err(ctx.err(K::BadValue, pspan, "sensors.probe.misalignment_deg", "each angle must be finite and within 45 deg"));
+        if probe
+            .misalignment_deg
+            .iter()
+            .any(|a| !(a.is_finite() && a.abs() <= 45.0))
+        {
+            return Err(ctx.err(
+                K::BadValue,
+                pspan,
+                "sensors.probe.misalignment_deg",
+                "each angle must be finite and within 45 deg",
+            ));
         }
         let cspan = sd.contact.as_ref().map_or(0..0, |p| p.span());
         let cv = sd.contact.as_ref().map(|p| p.get_ref());
         let contact = ContactNoise {
-            stiffness_n_per_m: finite_nonneg(&ctx, cv.and_then(|c| c.stiffness_n_per_m).unwrap_or(4000.0), cspan.clone(), "sensors.contact.stiffness_n_per_m")?,
-            noise_n: finite_nonneg(&ctx, cv.and_then(|c| c.noise_n).unwrap_or(0.02), cspan.clone(), "sensors.contact.noise_n")?,
-            threshold_n: finite_nonneg(&ctx, cv.and_then(|c| c.threshold_n).unwrap_or(0.1), cspan.clone(), "sensors.contact.threshold_n")?,
-            normal_noise_rad: finite_nonneg(&ctx, cv.and_then(|c| c.normal_noise_rad).unwrap_or(0.02), cspan.clone(), "sensors.contact.normal_noise_rad")?,
-            dropout_probability: prob(cv.and_then(|c| c.dropout_probability), cspan, "sensors.contact.dropout_probability")?,
+            stiffness_n_per_m: finite_nonneg(
+                &ctx,
+                cv.and_then(|c| c.stiffness_n_per_m).unwrap_or(4000.0),
+                cspan.clone(),
+                "sensors.contact.stiffness_n_per_m",
+            )?,
+            noise_n: finite_nonneg(
+                &ctx,
+                cv.and_then(|c| c.noise_n).unwrap_or(0.02),
+                cspan.clone(),
+                "sensors.contact.noise_n",
+            )?,
+            threshold_n: finite_nonneg(
+                &ctx,
+                cv.and_then(|c| c.threshold_n).unwrap_or(0.1),
+                cspan.clone(),
+                "sensors.contact.threshold_n",
+            )?,
+            normal_noise_rad: finite_nonneg(
+                &ctx,
+                cv.and_then(|c| c.normal_noise_rad).unwrap_or(0.02),
+                cspan.clone(),
+                "sensors.contact.normal_noise_rad",
+            )?,
+            dropout_probability: prob(
+                cv.and_then(|c| c.dropout_probability),
+                cspan,
+                "sensors.contact.dropout_probability",
+            )?,
         };
         let ospan = sd.odometry.as_ref().map_or(0..0, |p| p.span());
         let ov = sd.odometry.as_ref().map(|p| p.get_ref());
         let odometry = OdometryNoise {
-            position_walk_m_per_sqrt_m: finite_nonneg(&ctx, ov.and_then(|o| o.position_walk_m_per_sqrt_m).unwrap_or(0.005), ospan.clone(), "sensors.odometry.position_walk_m_per_sqrt_m")?,
-            attitude_walk_rad_per_sqrt_m: finite_nonneg(&ctx, ov.and_then(|o| o.attitude_walk_rad_per_sqrt_m).unwrap_or(0.002), ospan.clone(), "sensors.odometry.attitude_walk_rad_per_sqrt_m")?,
+            position_walk_m_per_sqrt_m: finite_nonneg(
+                &ctx,
+                ov.and_then(|o| o.position_walk_m_per_sqrt_m)
+                    .unwrap_or(0.005),
+                ospan.clone(),
+                "sensors.odometry.position_walk_m_per_sqrt_m",
+            )?,
+            attitude_walk_rad_per_sqrt_m: finite_nonneg(
+                &ctx,
+                ov.and_then(|o| o.attitude_walk_rad_per_sqrt_m)
+                    .unwrap_or(0.002),
+                ospan.clone(),
+                "sensors.odometry.attitude_walk_rad_per_sqrt_m",
+            )?,
             scale_error: ov.and_then(|o| o.scale_error).unwrap_or(0.0),
-            dropout_probability: prob(ov.and_then(|o| o.dropout_probability), ospan.clone(), "sensors.odometry.dropout_probability")?,
+            dropout_probability: prob(
+                ov.and_then(|o| o.dropout_probability),
+                ospan.clone(),
+                "sensors.odometry.dropout_probability",
+            )?,
         };
         if !(odometry.scale_error.is_finite() && odometry.scale_error.abs() < 0.5) {
-            return Err(ctx.err(K::BadValue, ospan, "sensors.odometry.scale_error", "must be finite and within +-0.5"));
+            return Err(ctx.err(
+                K::BadValue,
+                ospan,
+                "sensors.odometry.scale_error",
+                "must be finite and within +-0.5",
+            ));
         }
         let jspan = sd.joints.as_ref().map_or(0..0, |p| p.span());
         let jv = sd.joints.as_ref().map(|p| p.get_ref());
         let joints = JointNoise {
-            noise_rad: finite_nonneg(&ctx, jv.and_then(|j| j.noise_rad).unwrap_or(0.002), jspan.clone(), "sensors.joints.noise_rad")?,
-            dropout_probability: prob(jv.and_then(|j| j.dropout_probability), jspan, "sensors.joints.dropout_probability")?,
+            noise_rad: finite_nonneg(
+                &ctx,
+                jv.and_then(|j| j.noise_rad).unwrap_or(0.002),
+                jspan.clone(),
+                "sensors.joints.noise_rad",
+            )?,
+            dropout_probability: prob(
+                jv.and_then(|j| j.dropout_probability),
+                jspan,
+                "sensors.joints.dropout_probability",
+            )?,
         };
         let tspan = sd.temperature.as_ref().map_or(0..0, |p| p.span());
         let tv = sd.temperature.as_ref().map(|p| p.get_ref());
         let temperature = TemperatureNoise {
             enabled: tv.and_then(|t| t.enabled).unwrap_or(true),
-            noise_k: finite_nonneg(&ctx, tv.and_then(|t| t.noise_k).unwrap_or(0.1), tspan, "sensors.temperature.noise_k")?,
+            noise_k: finite_nonneg(
+                &ctx,
+                tv.and_then(|t| t.noise_k).unwrap_or(0.1),
+                tspan,
+                "sensors.temperature.noise_k",
+            )?,
         };
 
         // [[fault]]
@@ -1206,12 +1469,22 @@ impl Scenario {
         for (k, fd) in doc.fault.iter().enumerate() {
             let f = fd.get_ref();
             let el = format!("fault[{k}]");
-            let at_s = finite_nonneg(&ctx, *f.at_s.get_ref(), f.at_s.span(), &format!("{el} at_s"))?;
+            let at_s = finite_nonneg(
+                &ctx,
+                *f.at_s.get_ref(),
+                f.at_s.span(),
+                &format!("{el} at_s"),
+            )?;
             let until_s = match &f.until_s {
                 Some(u) => {
                     let v = *u.get_ref();
                     if !(v.is_finite() && v > at_s) {
-                        return Err(ctx.err(K::BadValue, u.span(), format!("{el} until_s"), "must be finite and after at_s"));
+                        return Err(ctx.err(
+                            K::BadValue,
+                            u.span(),
+                            format!("{el} until_s"),
+                            "must be finite and after at_s",
+                        ));
                     }
                     v
                 }
@@ -1219,49 +1492,99 @@ impl Scenario {
             };
             let port = |what: &str| -> Result<usize, ScenarioError> {
                 let Some(p) = &f.port else {
-                    return Err(ctx.err(K::BadFault, f.kind.span(), el.clone(), format!("{what} needs port")));
+                    return Err(ctx.err(
+                        K::BadFault,
+                        f.kind.span(),
+                        el.clone(),
+                        format!("{what} needs port"),
+                    ));
                 };
                 let v = *p.get_ref() as usize;
                 if v >= nports {
-                    return Err(ctx.err(K::BadFault, p.span(), format!("{el} port"), format!("the probe has ports 0..{nports}")));
+                    return Err(ctx.err(
+                        K::BadFault,
+                        p.span(),
+                        format!("{el} port"),
+                        format!("the probe has ports 0..{nports}"),
+                    ));
                 }
                 Ok(v)
             };
             let kind = match f.kind.get_ref().as_str() {
-                "port_blocked" => FaultKind::PortBlocked { port: port("port_blocked")? },
-                "port_stuck" => FaultKind::PortStuck { port: port("port_stuck")? },
+                "port_blocked" => FaultKind::PortBlocked {
+                    port: port("port_blocked")?,
+                },
+                "port_stuck" => FaultKind::PortStuck {
+                    port: port("port_stuck")?,
+                },
                 "port_leak" => {
                     let p = port("port_leak")?;
                     let fr = f.leak_fraction.as_ref().map_or(0.5, |x| *x.get_ref());
                     if !(0.0..=1.0).contains(&fr) {
                         let span = f.leak_fraction.as_ref().map_or(f.kind.span(), |x| x.span());
-                        return Err(ctx.err(K::BadFault, span, format!("{el} leak_fraction"), "must lie in 0..=1"));
+                        return Err(ctx.err(
+                            K::BadFault,
+                            span,
+                            format!("{el} leak_fraction"),
+                            "must lie in 0..=1",
+                        ));
                     }
-                    FaultKind::PortLeak { port: p, fraction: fr }
+                    FaultKind::PortLeak {
+                        port: p,
+                        fraction: fr,
+                    }
                 }
                 "contact_dead" => {
                     let (Some(m), Some(s)) = (&f.module, &f.sensor) else {
-                        return Err(ctx.err(K::BadFault, f.kind.span(), el, "contact_dead needs module and sensor"));
+                        return Err(ctx.err(
+                            K::BadFault,
+                            f.kind.span(),
+                            el,
+                            "contact_dead needs module and sensor",
+                        ));
                     };
                     let (mi, si) = (*m.get_ref() as usize, *s.get_ref() as usize);
                     if mi >= modules.len() {
-                        return Err(ctx.err(K::BadFault, m.span(), format!("{el} module"), format!("the robot has modules 0..{}", modules.len())));
+                        return Err(ctx.err(
+                            K::BadFault,
+                            m.span(),
+                            format!("{el} module"),
+                            format!("the robot has modules 0..{}", modules.len()),
+                        ));
                     }
                     if si >= modules[mi].sensors.len() {
-                        return Err(ctx.err(K::BadFault, s.span(), format!("{el} sensor"), format!("module {mi} has sensors 0..{}", modules[mi].sensors.len())));
+                        return Err(ctx.err(
+                            K::BadFault,
+                            s.span(),
+                            format!("{el} sensor"),
+                            format!("module {mi} has sensors 0..{}", modules[mi].sensors.len()),
+                        ));
                     }
-                    FaultKind::ContactDead { module: mi, sensor: si }
+                    FaultKind::ContactDead {
+                        module: mi,
+                        sensor: si,
+                    }
                 }
                 "odometry_drift" => {
                     let d = f.drift_m_per_s.unwrap_or([0.0; 3]);
                     if d.iter().any(|x| !x.is_finite()) {
-                        return Err(ctx.err(K::BadFault, f.kind.span(), format!("{el} drift_m_per_s"), "must be finite"));
+                        return Err(ctx.err(
+                            K::BadFault,
+                            f.kind.span(),
+                            format!("{el} drift_m_per_s"),
+                            "must be finite",
+                        ));
                     }
                     FaultKind::OdometryDrift { drift_m_per_s: d }
                 }
                 "dropout" => {
                     let Some(c) = &f.channel else {
-                        return Err(ctx.err(K::BadFault, f.kind.span(), el, "dropout needs channel"));
+                        return Err(ctx.err(
+                            K::BadFault,
+                            f.kind.span(),
+                            el,
+                            "dropout needs channel",
+                        ));
                     };
                     let channel = match c.get_ref().as_str() {
                         "probe" => Channel::Probe,
@@ -1290,7 +1613,11 @@ impl Scenario {
                     ));
                 }
             };
-            faults.push(Fault { kind, at_s, until_s });
+            faults.push(Fault {
+                kind,
+                at_s,
+                until_s,
+            });
         }
 
         // [start]
@@ -1303,7 +1630,10 @@ impl Scenario {
             None => None,
         };
         let geometry = Geometry::new(&conduits.iter().map(|c| c.shape.clone()).collect::<Vec<_>>());
-        let Some(hit) = geometry.best_hit(position_m).filter(|h| h.clearance_m > 0.0) else {
+        let Some(hit) = geometry
+            .best_hit(position_m)
+            .filter(|h| h.clearance_m > 0.0)
+        else {
             return Err(ctx.err(
                 K::StartOutside,
                 st.position_m.span(),
@@ -1341,8 +1671,16 @@ impl Scenario {
             reach_distance_m: sc.reach_distance_m.unwrap_or(0.5),
             wall_sample_spacing_m: sc.wall_sample_spacing_m.unwrap_or(0.03),
         };
-        if !(scoring.reach_distance_m > 0.0 && scoring.wall_sample_spacing_m >= 0.005 && scoring.wall_sample_spacing_m.is_finite()) {
-            return Err(ctx.err(K::BadValue, whole, "scoring", "reach_distance_m must be positive and wall_sample_spacing_m at least 0.005 m"));
+        if !(scoring.reach_distance_m > 0.0
+            && scoring.wall_sample_spacing_m >= 0.005
+            && scoring.wall_sample_spacing_m.is_finite())
+        {
+            return Err(ctx.err(
+                K::BadValue,
+                whole,
+                "scoring",
+                "reach_distance_m must be positive and wall_sample_spacing_m at least 0.005 m",
+            ));
         }
         Ok(Self {
             name: meta.name.clone(),
@@ -1392,6 +1730,10 @@ impl Scenario {
     /// Largest module radius, m.
     #[must_use]
     pub fn robot_radius_m(&self) -> f64 {
-        self.robot.modules.iter().map(|m| m.radius_m).fold(0.0, f64::max)
+        self.robot
+            .modules
+            .iter()
+            .map(|m| m.radius_m)
+            .fold(0.0, f64::max)
     }
 }

@@ -75,7 +75,11 @@ impl Sensors {
         let nports = normals_head.len();
         let dt = sc.time_step_s;
         let tau = sc.sensors.probe.time_constant_s;
-        let lag_alpha = if tau > 0.0 { 1.0 - libm::exp(-dt / tau) } else { 1.0 };
+        let lag_alpha = if tau > 0.0 {
+            1.0 - libm::exp(-dt / tau)
+        } else {
+            1.0
+        };
         let delay_steps = libm::round(sc.sensors.probe.latency_s / dt) as usize;
         let seed = sc.seed;
         Self {
@@ -131,14 +135,16 @@ impl Sensors {
             }
             let rot = vec3::cross(self.odo_att_err, disp);
             for i in 0..3 {
-                self.odo_pos_err[i] += o.scale_error * disp[i] + rot[i] + self.rng_odo.gauss(o.position_walk_m_per_sqrt_m * k);
+                self.odo_pos_err[i] += o.scale_error * disp[i]
+                    + rot[i]
+                    + self.rng_odo.gauss(o.position_walk_m_per_sqrt_m * k);
             }
         }
         for f in &sc.faults {
-            if let FaultKind::OdometryDrift { drift_m_per_s } = f.kind {
-                if f.active(t) {
-                    self.odo_pos_err = vec3::axpy(self.odo_pos_err, dt, drift_m_per_s);
-                }
+            if let FaultKind::OdometryDrift { drift_m_per_s } = f.kind
+                && f.active(t)
+            {
+                self.odo_pos_err = vec3::axpy(self.odo_pos_err, dt, drift_m_per_s);
             }
         }
     }
@@ -223,10 +229,9 @@ impl Sensors {
         ports.clear();
         for i in 0..n {
             let mut y = self.delay[r * n + i] + sp.bias_pa[i] + self.rng_probe.gauss(sp.noise_pa);
-            let stuck = sc
-                .faults
-                .iter()
-                .any(|f| f.active(t) && matches!(f.kind, FaultKind::PortStuck { port } if port == i));
+            let stuck = sc.faults.iter().any(|f| {
+                f.active(t) && matches!(f.kind, FaultKind::PortStuck { port } if port == i)
+            });
             if stuck {
                 y = *self.stuck_hold[i].get_or_insert(self.last_out[i]);
             } else {
@@ -250,7 +255,9 @@ impl Sensors {
 
         // ---- pose
         let q_true = body.head_quaternion_wxyz();
-        let qt = UnitQuaternion::from_quaternion(nalgebra::Quaternion::new(q_true[0], q_true[1], q_true[2], q_true[3]));
+        let qt = UnitQuaternion::from_quaternion(nalgebra::Quaternion::new(
+            q_true[0], q_true[1], q_true[2], q_true[3],
+        ));
         let e = self.odo_att_err;
         let qr = UnitQuaternion::from_scaled_axis(Vector3::new(e[0], e[1], e[2])) * qt;
         let o = &sc.sensors.odometry;
@@ -311,7 +318,8 @@ impl Sensors {
                     continue;
                 }
                 let normal = if s.measures_normal {
-                    let out = vec3::unit(h.offset).unwrap_or_else(|| body.module_dir(k, [0.0, c, sn]));
+                    let out =
+                        vec3::unit(h.offset).unwrap_or_else(|| body.module_dir(k, [0.0, c, sn]));
                     let nm = body.to_module_dir(k, out);
                     let noisy = [
                         nm[0] + self.rng_contact.gauss(cn.normal_noise_rad),

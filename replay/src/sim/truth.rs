@@ -39,10 +39,18 @@ impl WallSamples {
                 let t = p.len_m * it as f64 / nt as f64;
                 let r = p.radius_at(t);
                 let c = vec3::axpy(p.a, t, p.dir);
-                let na = (2.0 * core::f64::consts::PI * r / spacing_m).ceil().max(6.0) as usize;
+                let na = (2.0 * core::f64::consts::PI * r / spacing_m)
+                    .ceil()
+                    .max(6.0) as usize;
                 for ia in 0..na {
                     let a = 2.0 * core::f64::consts::PI * ia as f64 / na as f64;
-                    let q = vec3::add(c, vec3::add(vec3::scale(u, r * libm::cos(a)), vec3::scale(w, r * libm::sin(a))));
+                    let q = vec3::add(
+                        c,
+                        vec3::add(
+                            vec3::scale(u, r * libm::cos(a)),
+                            vec3::scale(w, r * libm::sin(a)),
+                        ),
+                    );
                     if keep(q, pi) {
                         pts.push(q);
                     }
@@ -50,7 +58,9 @@ impl WallSamples {
             }
             // End spheres (Fibonacci lattice).
             for (c, r) in [(p.a, p.r_a_m), (vec3::axpy(p.a, p.len_m, p.dir), p.r_b_m)] {
-                let n = (4.0 * core::f64::consts::PI * r * r / (spacing_m * spacing_m)).ceil().max(12.0) as usize;
+                let n = (4.0 * core::f64::consts::PI * r * r / (spacing_m * spacing_m))
+                    .ceil()
+                    .max(12.0) as usize;
                 let golden = core::f64::consts::PI * (3.0 - libm::sqrt(5.0));
                 for i in 0..n {
                     let z = 1.0 - 2.0 * (i as f64 + 0.5) / n as f64;
@@ -62,7 +72,10 @@ impl WallSamples {
                     if own.clearance_m > 1e-9 {
                         continue;
                     }
-                    if g.candidates(q).iter().all(|&pj| g.pieces[pj as usize].locate(pj, q).clearance_m <= 1e-9) {
+                    if g.candidates(q)
+                        .iter()
+                        .all(|&pj| g.pieces[pj as usize].locate(pj, q).clearance_m <= 1e-9)
+                    {
                         pts.push(q);
                     }
                 }
@@ -138,10 +151,17 @@ impl TruePath {
     #[must_use]
     pub fn find(sc: &Scenario, g: &Geometry, start: &Hit, robot_r: f64) -> Option<Self> {
         let pass = |c: usize| g.conduits[c].min_radius_m > robot_r;
-        Self::dijkstra(sc, g, start, &pass, true).or_else(|| Self::dijkstra(sc, g, start, &|_| true, false))
+        Self::dijkstra(sc, g, start, &pass, true)
+            .or_else(|| Self::dijkstra(sc, g, start, &|_| true, false))
     }
 
-    fn dijkstra(sc: &Scenario, g: &Geometry, start: &Hit, pass: &dyn Fn(usize) -> bool, passable: bool) -> Option<Self> {
+    fn dijkstra(
+        sc: &Scenario,
+        g: &Geometry,
+        start: &Hit,
+        pass: &dyn Fn(usize) -> bool,
+        passable: bool,
+    ) -> Option<Self> {
         let n = sc.nodes.len();
         let c0 = start.conduit as usize;
         let start_node = n; // virtual node at the start point
@@ -153,7 +173,10 @@ impl TruePath {
         if !pass(c0) {
             return None;
         }
-        for (node, d) in [(cg.from, start.station_m), (cg.to, cg.length_m - start.station_m)] {
+        for (node, d) in [
+            (cg.from, start.station_m),
+            (cg.to, cg.length_m - start.station_m),
+        ] {
             if d < dist[node] {
                 dist[node] = d;
                 via[node] = Some((start_node, c0));
@@ -211,12 +234,20 @@ impl TruePath {
             }
         };
         let first_node = nodes[0];
-        let s_end = if cg.from == first_node { 0.0 } else { cg.length_m };
+        let s_end = if cg.from == first_node {
+            0.0
+        } else {
+            cg.length_m
+        };
         push_range(&mut poly, c0, start.station_m, s_end);
         let mut at = first_node;
         for &ci in conduits.iter().skip(1) {
             let c = &g.conduits[ci];
-            let (a, b, next) = if c.from == at { (0.0, c.length_m, c.to) } else { (c.length_m, 0.0, c.from) };
+            let (a, b, next) = if c.from == at {
+                (0.0, c.length_m, c.to)
+            } else {
+                (c.length_m, 0.0, c.from)
+            };
             push_range(&mut poly, ci, a, b);
             at = next;
         }

@@ -22,7 +22,9 @@
 
 use super::friction::{RE_LAMINAR_MAX, RE_TURBULENT_MIN};
 use super::geometry::{Geometry, Hit, MAX_HITS};
-use super::network::{FlowError, FlowProblem, FlowSolution, LinearSolver, Link, LinkModel, LossPiece, NodeCondition};
+use super::network::{
+    FlowError, FlowProblem, FlowSolution, LinearSolver, Link, LinkModel, LossPiece, NodeCondition,
+};
 use super::nozzle::{Nozzle, NozzleError};
 use super::scenario::{NodeKind, Scenario};
 use super::vec3::{self, V3};
@@ -128,7 +130,9 @@ impl World {
             .nodes
             .iter()
             .filter_map(|n| match n.kind {
-                NodeKind::Exit { ambient_pressure_pa } => Some(ambient_pressure_pa),
+                NodeKind::Exit {
+                    ambient_pressure_pa,
+                } => Some(ambient_pressure_pa),
                 _ => None,
             })
             .collect();
@@ -138,14 +142,20 @@ impl World {
             .nodes
             .iter()
             .map(|n| match n.kind {
-                NodeKind::Junction => NodeCondition::Free { injection_kg_per_s: 0.0 },
+                NodeKind::Junction => NodeCondition::Free {
+                    injection_kg_per_s: 0.0,
+                },
                 NodeKind::MassFlowSource { mass_flow_kg_per_s } => NodeCondition::Free {
                     injection_kg_per_s: mass_flow_kg_per_s,
                 },
-                NodeKind::ReservoirSource { stagnation_pressure_pa } => NodeCondition::Fixed {
+                NodeKind::ReservoirSource {
+                    stagnation_pressure_pa,
+                } => NodeCondition::Fixed {
                     pressure_pa: stagnation_pressure_pa,
                 },
-                NodeKind::Exit { ambient_pressure_pa } => NodeCondition::Fixed {
+                NodeKind::Exit {
+                    ambient_pressure_pa,
+                } => NodeCondition::Fixed {
                     pressure_pa: ambient_pressure_pa,
                 },
             })
@@ -220,7 +230,11 @@ impl World {
                     mach: nz.mach.clone(),
                     p0: nz.p0_pa.clone(),
                     t0: nz.t0_k,
-                    sign: if nz.mass_flow_kg_per_s > 0.0 { 1.0 } else { 0.0 },
+                    sign: if nz.mass_flow_kg_per_s > 0.0 {
+                        1.0
+                    } else {
+                        0.0
+                    },
                 });
             } else {
                 // Map sub-piece cumulative drops back to geometry pieces.
@@ -304,10 +318,15 @@ impl World {
                 let re = mdot.abs() * 2.0 * r / (a * self.problem.viscosity_pa_s);
                 let lam = 2.0 * (1.0 - xi * xi);
                 let tur = 60.0 / 49.0 * libm::pow(1.0 - xi, 1.0 / 7.0);
-                let w = ((re - RE_LAMINAR_MAX) / (RE_TURBULENT_MIN - RE_LAMINAR_MAX)).clamp(0.0, 1.0);
+                let w =
+                    ((re - RE_LAMINAR_MAX) / (RE_TURBULENT_MIN - RE_LAMINAR_MAX)).clamp(0.0, 1.0);
                 let u = v_mean * ((1.0 - w) * lam + w * tur);
                 let k = (h.piece as usize) - self.piece_start[c];
-                let f = if piece.len_m > 0.0 { h.t_m / piece.len_m } else { 0.0 };
+                let f = if piece.len_m > 0.0 {
+                    h.t_m / piece.len_m
+                } else {
+                    0.0
+                };
                 let drop = drop_start[k] + f * (drop_end[k] - drop_start[k]);
                 let p_total_mean = p_from - drop;
                 let p_static = p_total_mean - 0.5 * self.density * v_mean * v_mean;
@@ -333,9 +352,15 @@ impl World {
                 sign,
             } => {
                 let s = h.station_m;
-                let i = stations.partition_point(|&x| x <= s).clamp(1, stations.len() - 1);
+                let i = stations
+                    .partition_point(|&x| x <= s)
+                    .clamp(1, stations.len() - 1);
                 let (s0, s1) = (stations[i - 1], stations[i]);
-                let f = if s1 > s0 { ((s - s0) / (s1 - s0)).clamp(0.0, 1.0) } else { 0.0 };
+                let f = if s1 > s0 {
+                    ((s - s0) / (s1 - s0)).clamp(0.0, 1.0)
+                } else {
+                    0.0
+                };
                 let m_core = mach[i - 1] + f * (mach[i] - mach[i - 1]);
                 // Local stagnation pressure: no blending across the shock.
                 let p0_loc = if f < 0.5 { p0[i - 1] } else { p0[i] };
@@ -408,7 +433,9 @@ impl World {
                 if n > 1 {
                     // Recompute the derived quantities of the blend.
                     let speed = vec3::norm(s.velocity_m_per_s);
-                    let a_snd = libm::sqrt(self.gas.gamma() * self.gas.r_j_per_kg_k() * s.static_temperature_k);
+                    let a_snd = libm::sqrt(
+                        self.gas.gamma() * self.gas.r_j_per_kg_k() * s.static_temperature_k,
+                    );
                     s.mach = speed / a_snd;
                 }
                 s
