@@ -72,9 +72,10 @@ impl Body {
         let total: f64 = lengths.iter().sum();
         let keep_m = total + 0.5;
         let n = (keep_m / TRAIL_STEP_M).ceil() as usize + 2;
-        let trail = (1..=n)
-            .map(|i| vec3::axpy(head, -(i as f64) * TRAIL_STEP_M, axis))
-            .collect();
+        // Room for the trim slack and a back-out's extension: the trail
+        // never outgrows this, so stepping does not allocate.
+        let mut trail = VecDeque::with_capacity(2 * n + 256);
+        trail.extend((1..=n).map(|i| vec3::axpy(head, -(i as f64) * TRAIL_STEP_M, axis)));
         let mut b = Self {
             lengths: lengths.to_vec(),
             trail,

@@ -215,6 +215,7 @@ impl Sim {
             true_path_length_m: path.as_ref().map_or(f64::NAN, |p| p.length_m),
             true_path_passable: path.as_ref().is_some_and(|p| p.passable),
         };
+        let sensor_count = scenario.robot.modules.iter().map(|m| m.sensors.len()).sum();
         let mut sim = Self {
             scenario,
             world,
@@ -228,7 +229,7 @@ impl Sim {
                 joints: None,
                 port_pressures_pa: None,
                 total_temperature_k: None,
-                contacts: Vec::new(),
+                contacts: Vec::with_capacity(sensor_count),
             },
             time_s: 0.0,
             steps: 0,
