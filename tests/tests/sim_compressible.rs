@@ -131,8 +131,13 @@ fn fissure_solves_across_reservoir_pressures() {
     let base = demos::demo_text("hollow-kettle").unwrap();
     let mut last = 0.0;
     let mut choked_seen = false;
-    for p0 in [86_300.0, 88_000.0, 95_000.0, 120_000.0, 160_000.0, 250_000.0, 400_000.0] {
-        let text = base.replace("stagnation_pressure_pa = 160000.0", &format!("stagnation_pressure_pa = {p0:.1}"));
+    for p0 in [
+        86_300.0, 88_000.0, 95_000.0, 120_000.0, 160_000.0, 250_000.0, 400_000.0,
+    ] {
+        let text = base.replace(
+            "stagnation_pressure_pa = 160000.0",
+            &format!("stagnation_pressure_pa = {p0:.1}"),
+        );
         let sc = replay::sim::scenario::Scenario::from_toml_str(&text).unwrap();
         let w = World::new(&sc).unwrap_or_else(|e| panic!("p0 {p0}: {e}"));
         let st = w.solution.links[0].nozzle.as_ref().unwrap();
@@ -141,7 +146,9 @@ fn fissure_solves_across_reservoir_pressures() {
         if st.choked {
             choked_seen = true;
             let a_t = core::f64::consts::PI * 0.12 * 0.12;
-            let mstar = IdealGas::WATER_VAPOUR.choked_mass_flow_kg_per_s(a_t, p0, 410.0).unwrap();
+            let mstar = IdealGas::WATER_VAPOUR
+                .choked_mass_flow_kg_per_s(a_t, p0, 410.0)
+                .unwrap();
             assert!((m - mstar).abs() < 1e-9 * mstar);
         }
         // Fissure in = chimney + shelf + weep out at the Mouth.

@@ -16,12 +16,14 @@
 //!   temperature from the local Mach number and the local stagnation state.
 //! - where the section changes, a radial component `u xi dR/ds` keeps the
 //!   streamlines parallel to the wall.
-//! - mixing zones: where a point lies inside several conduits (at a
-//!   junction, where their end spheres overlap) the samples of each are
-//!   blended with weights `(clearance / R)^2`.
+//! - mixing zones: where a point lies inside several conduits' tubes (at a
+//!   junction, where their end spheres overlap; also at a bend between two
+//!   pieces of one conduit) the samples of each are blended with weights
+//!   `(clearance / R)^2`, zero on each tube's wall, so the field is
+//!   continuous.
 
 use super::friction::{RE_LAMINAR_MAX, RE_TURBULENT_MIN};
-use super::geometry::{Geometry, Hit, MAX_HITS};
+use super::geometry::{Geometry, Hit};
 use super::network::{
     FlowError, FlowProblem, FlowSolution, LinearSolver, Link, LinkModel, LossPiece, NodeCondition,
 };
@@ -389,38 +391,34 @@ impl World {
 
     /// The gas state at `p` (map frame). Outside every conduit: still gas at
     /// the nearest conduit's static state, with `conduit = None`.
+    ///
+    /// Every piece whose tube contains `p` contributes with weight
+    /// `(clearance / R)^2`, which is zero on its wall: the blend is
+    /// continuous across junctions (the mixing zones) and across the bends
+    /// between a conduit's own pieces.
     #[must_use]
     pub fn sample(&self, p: V3) -> FlowSample {
-        let mut hits = [Hit {
-            conduit: 0,
-            piece: 0,
-            t_m: 0.0,
-            station_m: 0.0,
-            foot: [0.0; 3],
-            offset: [0.0; 3],
-            rho_m: 0.0,
-            radius_m: 0.0,
-            clearance_m: 0.0,
-        }; MAX_HITS];
-        let n = self.geometry.hits_by_conduit(p, &mut hits);
         let mut acc: Option<(FlowSample, f64)> = None;
         let mut best_w = 0.0;
         let mut best_c = None;
         let mut nearest: Option<Hit> = None;
-        for h in &hits[..n] {
+        let mut contributors = 0;
+        for &pi in self.geometry.candidates(p) {
+            let h = self.geometry.pieces[pi as usize].locate(pi, p);
             if nearest.is_none_or(|b| h.clearance_m > b.clearance_m) {
-                nearest = Some(*h);
+                nearest = Some(h);
             }
             if h.clearance_m <= 0.0 {
                 continue;
             }
             let w0 = h.clearance_m / h.radius_m;
             let w = w0 * w0;
-            let s = self.sample_hit(h);
+            let s = self.sample_hit(&h);
             if w > best_w {
                 best_w = w;
                 best_c = Some(h.conduit);
             }
+            contributors += 1;
             acc = Some(match acc {
                 None => (scaled(&s, w), w),
                 Some((a, wa)) => (add_scaled(&a, &s, w), wa + w),
@@ -430,12 +428,11 @@ impl World {
             Some((a, w)) => {
                 let mut s = scaled(&a, 1.0 / w);
                 s.conduit = best_c;
-                if n > 1 {
-                    // Recompute the derived quantities of the blend.
+                if contributors > 1 {
+                    // Mach of the blended velocity.
                     let speed = vec3::norm(s.velocity_m_per_s);
-                    let a_snd = libm::sqrt(
-                        self.gas.gamma() * self.gas.r_j_per_kg_k() * s.static_temperature_k,
-                    );
+                    let a_snd =
+                        libm::sqrt(self.gas.gamma() * s.static_pressure_pa / s.density_kg_per_m3);
                     s.mach = speed / a_snd;
                 }
                 s
