@@ -49,7 +49,7 @@ use vec3::V3;
 use world::{FlowSample, World, WorldError};
 
 /// What the navigator asks for: a direction of travel and a speed.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct MotionCommand {
     /// Desired direction of travel, map frame (normalised by the sim). A
     /// heading more than 120 deg from the head axis backs the robot out

@@ -270,8 +270,8 @@ impl TruePath {
     }
 }
 
-/// How a run went, by the truth.
-#[derive(Debug, Clone, PartialEq)]
+/// How a run went, by the truth (serde for run summaries).
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct Outcome {
     /// Whether the head came within the reach distance of a source node.
     pub reached_source: bool,
