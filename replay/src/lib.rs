@@ -7,4 +7,5 @@ pub mod import;
 pub mod log;
 pub mod plot;
 pub mod record;
+pub mod run;
 pub mod sim;

@@ -14,7 +14,74 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand};
 use replay::diff::{DiffOptions, Tolerance, Verdict, diff_files};
 use replay::import::import_files;
-use replay::log::{ReadOptions, inspect};
+use replay::log::{LogWriter, ReadOptions, inspect};
+use replay::run::{LiveOptions, RunSummary, build_sim, header_for, run_live, run_log};
+
+/// The demo the README's first command runs.
+const DEFAULT_DEMO: &str = "wrens-slot";
+
+fn create(path: &std::path::Path) -> Result<std::io::BufWriter<std::fs::File>, String> {
+    if let Some(dir) = path.parent()
+        && !dir.as_os_str().is_empty()
+    {
+        std::fs::create_dir_all(dir).map_err(|e| format!("{}: {e}", dir.display()))?;
+    }
+    let f = std::fs::File::create(path).map_err(|e| format!("{}: {e}", path.display()))?;
+    Ok(std::io::BufWriter::new(f))
+}
+
+fn write_json<T: serde::Serialize>(path: &std::path::Path, v: &T) -> Result<(), String> {
+    let mut w = create(path)?;
+    serde_json::to_writer_pretty(&mut w, v).map_err(|e| e.to_string())?;
+    w.write_all(b"\n").map_err(|e| e.to_string())?;
+    w.flush().map_err(|e| format!("{}: {e}", path.display()))
+}
+
+fn print_summary(s: &RunSummary) {
+    println!("input        {}", s.input);
+    if let (Some(name), Some(seed)) = (&s.scenario, s.seed) {
+        println!("scenario     {name} (seed {seed})");
+    }
+    println!("outcome      {}", s.outcome);
+    println!(
+        "steps        {} ({:.2} s to {:.2} s)",
+        s.trace.steps, s.time_span_s[0], s.time_span_s[1]
+    );
+    if let Some(t) = &s.truth {
+        println!(
+            "truth        reached source: {}{}; wrong branches {}; min standoff {:.3} m; wall strikes {}; travelled {:.1} m; held {:.1} s",
+            if t.reached_source { "yes" } else { "no" },
+            t.reached_at_s
+                .map_or(String::new(), |x| format!(" at {x:.1} s")),
+            t.wrong_branches,
+            t.min_standoff_m,
+            t.wall_strikes,
+            t.distance_travelled_m,
+            t.time_held_s
+        );
+    }
+    println!("mode changes {}", s.trace.mode_changes);
+    let mut reasons: Vec<_> = s.trace.reasons.iter().collect();
+    reasons.sort_by(|a, b| b.1.cmp(a.1).then(a.0.cmp(b.0)));
+    let top: Vec<String> = reasons
+        .iter()
+        .take(5)
+        .map(|(k, v)| format!("{k} {v}"))
+        .collect();
+    println!("reasons      {}", top.join(", "));
+    if !s.faults_seen.is_empty() {
+        println!("faults       {}", s.faults_seen.join("; "));
+    }
+    println!("digest       {}", s.trace.trace_digest);
+}
+
+fn is_log(path: &str) -> bool {
+    let mut magic = [0u8; 8];
+    std::fs::File::open(path)
+        .and_then(|mut f| std::io::Read::read_exact(&mut f, &mut magic))
+        .is_ok()
+        && &magic == b"UPCURLOG"
+}
 
 /// Ground tools for Upcurrent conduit robots: logs, traces, imports.
 #[derive(Debug, Parser)]
@@ -70,14 +137,118 @@ enum Command {
         #[arg(short = 'o', long = "out", value_name = "LOG")]
         out: PathBuf,
     },
-    // Commands to come (issue 7), each a thin wrapper over its library
-    // module, added with that module:
-    //   demo      simulate the built-in scenario, run, summarise, plot
-    //   generate  scenario file or demo + seed -> log
-    //   run       navigator over a log or a live simulation -> trace, summary, digest
-    //   campaign  many seeds, parallel, --shard i/n
-    //   merge     combine campaign shards exactly
-    //   plot      SVG of a run
+    /// Simulate a built-in demo scenario, run the navigator on it, print
+    /// the summary and write the trace, summary and plot.
+    Demo {
+        /// Which demo (see `replay scenarios`).
+        #[arg(default_value = DEFAULT_DEMO)]
+        name: String,
+        /// Seed (default: the scenario's own).
+        #[arg(long)]
+        seed: Option<u64>,
+        /// Output folder.
+        #[arg(long, value_name = "DIR", default_value = "out/demo")]
+        out: PathBuf,
+    },
+    /// List the built-in demo scenarios.
+    Scenarios,
+    /// Simulate a scenario with the navigator in the loop and record what
+    /// the robot sensed as a log.
+    Generate {
+        /// A scenario file, or `demo:<name>`.
+        scenario: String,
+        /// Seed (default: the scenario's own).
+        #[arg(long)]
+        seed: Option<u64>,
+        /// The log to write.
+        #[arg(short = 'o', long = "out", value_name = "LOG")]
+        out: PathBuf,
+        /// Stop after this much simulated time, s.
+        #[arg(long, value_name = "S")]
+        max_time: Option<f64>,
+    },
+    /// Run the navigator over a log, or live over a scenario file or
+    /// `demo:<name>`; write the decision trace and summary; print the
+    /// trace digest.
+    Run {
+        /// A log file, a scenario file, or `demo:<name>`.
+        input: String,
+        /// Seed for a simulated run (default: the scenario's own).
+        #[arg(long)]
+        seed: Option<u64>,
+        /// Trace file (JSON Lines).
+        #[arg(long, value_name = "FILE", default_value = "out/trace.jsonl")]
+        trace: PathBuf,
+        /// Summary file (JSON).
+        #[arg(long, value_name = "FILE", default_value = "out/summary.json")]
+        summary: PathBuf,
+        /// Read a damaged log, skipping damaged records.
+        #[arg(long)]
+        salvage: bool,
+        /// Stop a simulated run after this much time, s.
+        #[arg(long, value_name = "S")]
+        max_time: Option<f64>,
+    },
+    /// Many seeds over one or more scenarios, in parallel.
+    Campaign {
+        /// Scenario files or `demo:<name>` (repeatable).
+        #[arg(long = "scenario", value_name = "SCENARIO", required = true)]
+        scenarios: Vec<String>,
+        /// Seeds per scenario.
+        #[arg(long, default_value_t = 100)]
+        seeds: u64,
+        /// First seed.
+        #[arg(long, default_value_t = 1)]
+        first_seed: u64,
+        /// Worker threads (0: one per core).
+        #[arg(long, default_value_t = 0)]
+        threads: usize,
+        /// Run only shard i of n (0-based), e.g. `--shard 3/16`.
+        #[arg(long, value_name = "I/N")]
+        shard: Option<String>,
+        /// Results file (JSON Lines; input to `merge`).
+        #[arg(
+            short = 'o',
+            long = "out",
+            value_name = "FILE",
+            default_value = "out/campaign.jsonl"
+        )]
+        out: PathBuf,
+        /// Stop each run after this much simulated time, s.
+        #[arg(long, value_name = "S")]
+        max_time: Option<f64>,
+        /// No progress bar.
+        #[arg(long)]
+        quiet: bool,
+    },
+    /// Combine campaign shard results exactly and print the summary table.
+    Merge {
+        /// Shard results files.
+        #[arg(required = true)]
+        files: Vec<PathBuf>,
+        /// Merged results file.
+        #[arg(short = 'o', long = "out", value_name = "FILE")]
+        out: Option<PathBuf>,
+    },
+    /// Draw a simulated run as SVG: top and side views.
+    Plot {
+        /// A scenario file or `demo:<name>`.
+        input: String,
+        /// Seed (default: the scenario's own).
+        #[arg(long)]
+        seed: Option<u64>,
+        /// The SVG to write.
+        #[arg(
+            short = 'o',
+            long = "out",
+            value_name = "SVG",
+            default_value = "out/run.svg"
+        )]
+        out: PathBuf,
+        /// Stop after this much simulated time, s.
+        #[arg(long, value_name = "S")]
+        max_time: Option<f64>,
+    },
 }
 
 fn print_json<T: serde::Serialize>(v: &T) -> Result<(), String> {
@@ -151,6 +322,225 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             );
             Ok(ExitCode::SUCCESS)
         }
+        Command::Scenarios => {
+            for (key, text) in replay::sim::demos::DEMOS {
+                let desc = replay::sim::scenario::Scenario::from_toml_str(text)
+                    .map(|s| s.description)
+                    .unwrap_or_default();
+                println!("demo:{key:<18} {desc}");
+            }
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Demo { name, seed, out } => {
+            let input = format!("demo:{name}");
+            let sim = build_sim(&input, seed).map_err(|e| e.to_string())?;
+            let trace_path = out.join("trace.jsonl");
+            let trace = create(&trace_path)?;
+            let (res, _) =
+                run_live::<_, std::io::Sink>(&input, sim, trace, None, &LiveOptions::default())
+                    .map_err(|e| e.to_string())?;
+            print_summary(&res.summary);
+            let summary_path = out.join("summary.json");
+            write_json(&summary_path, &res.summary)?;
+            let svg_path = out.join("plot.svg");
+            std::fs::write(&svg_path, replay::plot::render_svg(&res.scene))
+                .map_err(|e| format!("{}: {e}", svg_path.display()))?;
+            println!(
+                "wrote        {}, {}, {}",
+                trace_path.display(),
+                summary_path.display(),
+                svg_path.display()
+            );
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Generate {
+            scenario,
+            seed,
+            out,
+            max_time,
+        } => {
+            let sim = build_sim(&scenario, seed).map_err(|e| e.to_string())?;
+            let header = header_for(&sim, &scenario);
+            let writer = LogWriter::new(create(&out)?, &header).map_err(|e| e.to_string())?;
+            let opts = LiveOptions {
+                max_time_s: max_time,
+                scene_every: 0,
+            };
+            let (res, w) = run_live(&scenario, sim, std::io::sink(), Some(writer), &opts)
+                .map_err(|e| e.to_string())?;
+            if let Some(mut w) = w {
+                w.flush().map_err(|e| format!("{}: {e}", out.display()))?;
+            }
+            println!(
+                "wrote {} frames to {} ({}); trace digest {}",
+                res.summary.trace.steps,
+                out.display(),
+                res.summary.outcome,
+                res.summary.trace.trace_digest
+            );
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Run {
+            input,
+            seed,
+            trace,
+            summary,
+            salvage,
+            max_time,
+        } => {
+            let trace_w = create(&trace)?;
+            let s = if is_log(&input) {
+                let f = std::fs::File::open(&input).map_err(|e| format!("{input}: {e}"))?;
+                run_log(
+                    &input,
+                    std::io::BufReader::with_capacity(1 << 16, f),
+                    trace_w,
+                    salvage,
+                )
+                .map_err(|e| format!("{input}: {e}"))?
+            } else {
+                let sim = build_sim(&input, seed).map_err(|e| e.to_string())?;
+                let opts = LiveOptions {
+                    max_time_s: max_time,
+                    scene_every: 0,
+                };
+                run_live::<_, std::io::Sink>(&input, sim, trace_w, None, &opts)
+                    .map_err(|e| e.to_string())?
+                    .0
+                    .summary
+            };
+            write_json(&summary, &s)?;
+            print_summary(&s);
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Campaign {
+            scenarios,
+            seeds,
+            first_seed,
+            threads,
+            shard,
+            out,
+            max_time,
+            quiet,
+        } => {
+            use replay::campaign::{
+                CampaignPlan, Shard, format_table, run, summarise, write_results,
+            };
+            let shard = match shard {
+                Some(t) => Shard::parse(&t)?,
+                None => Shard::ALL,
+            };
+            let plan = CampaignPlan {
+                scenarios,
+                first_seed,
+                seeds,
+            };
+            let jobs = plan.jobs(shard).len() as u64;
+            let bar = if quiet {
+                indicatif::ProgressBar::hidden()
+            } else {
+                indicatif::ProgressBar::new(jobs)
+            };
+            bar.set_style(
+                indicatif::ProgressStyle::with_template(
+                    "{bar:40} {pos}/{len} runs  {elapsed} elapsed, {eta} left",
+                )
+                .map_err(|e| e.to_string())?,
+            );
+            let started = std::time::Instant::now();
+            let results = run(
+                &plan,
+                shard,
+                threads,
+                |job| replay::run::campaign_job(job, max_time),
+                || bar.inc(1),
+            )?;
+            bar.finish_and_clear();
+            let mut w = create(&out)?;
+            write_results(&mut w, &plan, shard, &results).map_err(|e| e.to_string())?;
+            w.flush().map_err(|e| format!("{}: {e}", out.display()))?;
+            let wall = started.elapsed().as_secs_f64();
+            if shard == Shard::ALL {
+                print!("{}", format_table(&summarise(&plan, &results)));
+                print_failures(&results);
+            }
+            println!(
+                "{} runs in {wall:.1} s wall time; results in {}",
+                results.len(),
+                out.display()
+            );
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Merge { files, out } => {
+            use replay::campaign::{
+                Shard, format_table, merge, read_results, summarise, write_results,
+            };
+            let mut shards = Vec::new();
+            for f in &files {
+                let file = std::fs::File::open(f).map_err(|e| format!("{}: {e}", f.display()))?;
+                shards.push(read_results(
+                    std::io::BufReader::new(file),
+                    &f.display().to_string(),
+                )?);
+            }
+            let (plan, results) = merge(shards)?;
+            print!("{}", format_table(&summarise(&plan, &results)));
+            print_failures(&results);
+            if let Some(out) = out {
+                let mut w = create(&out)?;
+                write_results(&mut w, &plan, Shard::ALL, &results).map_err(|e| e.to_string())?;
+                w.flush().map_err(|e| format!("{}: {e}", out.display()))?;
+            }
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Plot {
+            input,
+            seed,
+            out,
+            max_time,
+        } => {
+            let sim = build_sim(&input, seed).map_err(|e| e.to_string())?;
+            let opts = LiveOptions {
+                max_time_s: max_time,
+                ..LiveOptions::default()
+            };
+            let (res, _) = run_live::<_, std::io::Sink>(&input, sim, std::io::sink(), None, &opts)
+                .map_err(|e| e.to_string())?;
+            let mut w = create(&out)?;
+            w.write_all(replay::plot::render_svg(&res.scene).as_bytes())
+                .and_then(|()| w.flush())
+                .map_err(|e| format!("{}: {e}", out.display()))?;
+            println!(
+                "{}: {}; wrote {}",
+                input,
+                res.summary.outcome,
+                out.display()
+            );
+            Ok(ExitCode::SUCCESS)
+        }
+    }
+}
+
+fn print_failures(results: &[replay::campaign::SeedResult]) {
+    let failing: Vec<_> = results
+        .iter()
+        .filter(|r| !r.reached || r.wall_strikes > 0)
+        .collect();
+    if failing.is_empty() {
+        return;
+    }
+    println!("failing runs ({}), each rerun by:", failing.len());
+    for r in failing {
+        println!(
+            "  replay run {} --seed {}    # {}",
+            r.scenario,
+            r.seed,
+            r.failure.as_deref().unwrap_or(if r.reached {
+                "wall strike"
+            } else {
+                "not reached"
+            })
+        );
     }
 }
 

@@ -71,7 +71,8 @@ pub enum FitError {
         /// Ports the layout has.
         want: usize,
     },
-    /// The record has a different number of joints than the body.
+    /// The record has more joints than the frame has slots (fewer are
+    /// padded with straight joints; the body uses only its own count).
     JointCount {
         /// Joints in the record.
         got: usize,
@@ -123,7 +124,7 @@ impl FrameRecord {
                     yaw_rad: j.yaw_rad,
                 })
             });
-            if js.len() != J {
+            if js.len() > J {
                 return Err(FitError::JointCount {
                     got: js.len(),
                     want: J,
@@ -310,6 +311,9 @@ mod tests {
             r.to_sensor_frame::<7, 2, 8>().unwrap_err(),
             FitError::JointCount { got: 3, want: 2 }
         );
+        // Fewer joints than slots: padded.
+        let f = r.to_sensor_frame::<7, 5, 8>().unwrap();
+        assert_eq!(f.joints.unwrap()[4], JointAngles::default());
         assert_eq!(
             r.to_sensor_frame::<7, 3, 0>().unwrap_err(),
             FitError::TooManyContacts {
