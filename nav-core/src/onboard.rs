@@ -498,9 +498,12 @@ pub fn flow_from_solution(
         }
         _ => (None, [[0.0; 3]; 3]),
     };
+    // An isolated port is suspect; the health stage promotes it to failed
+    // when it stays inconsistent. A fault that cannot be isolated marks the
+    // solution degraded but blames no port.
+    let _ = ports;
     let (suspect, failed) = match sol.fault {
-        FaultReport::Isolated { port, .. } if port < 32 => (0, 1u32 << port),
-        FaultReport::DetectedNotIsolated { .. } => (all_ports_mask(ports), 0),
+        FaultReport::Isolated { port, .. } if port < 32 => (1u32 << port, 0),
         _ => (0, 0),
     };
     let static_t = match total_temperature_k {

@@ -174,6 +174,9 @@ fn onboard<const P: usize>(
     cfg.nav.decide.cruise_speed_m_per_s = robot
         .max_speed_m_per_s
         .min(cfg.nav.decide.cruise_speed_m_per_s);
+    // Flow counts as lost below what the transducers can resolve: five
+    // times the port noise (a 5-sigma floor; common practice).
+    cfg.nav.decide.min_dynamic_pressure_pa = 5.0 * robot.probe.port_noise_pa;
     Ok(cfg)
 }
 
