@@ -244,6 +244,8 @@ pub struct Snapshot {
     pub flow_dir: Option<[f64; 3]>,
     /// Junctions: position, chosen branch direction, rejected (direction, reason).
     pub junctions: Vec<crate::plot::JunctionMark>,
+    /// Wall points touched in the latest frame, map frame.
+    pub wall_points: Vec<[f64; 3]>,
 }
 
 fn snapshot_of<
@@ -296,10 +298,18 @@ fn snapshot_of<
             }
         })
         .collect();
+    let last = n.tactile().last_time_s();
+    let wall_points = n
+        .tactile()
+        .points()
+        .filter(|p| p.touched && Some(p.time_s) == last)
+        .map(|p| [p.point_map_m.x, p.point_map_m.y, p.point_map_m.z])
+        .collect();
     Snapshot {
         section,
         flow_dir,
         junctions,
+        wall_points,
     }
 }
 
@@ -606,15 +616,22 @@ pub fn run_live<T: Write, L: Write>(
                     radius_m: r,
                 });
             }
-            if step.is_multiple_of(opts.scene_every * 8)
-                && let Some(d) = snap.flow_dir
-            {
+            // One flow arrow per metre travelled keeps the picture legible
+            // whatever the speed.
+            let far_enough = scene.flow.last().is_none_or(|a| {
+                let d: f64 = (0..3)
+                    .map(|i| (a.position_m[i] - t.head_position_m[i]).powi(2))
+                    .sum();
+                d >= 1.0
+            });
+            if far_enough && let Some(d) = snap.flow_dir {
                 scene.flow.push(crate::plot::FlowArrow {
                     position_m: t.head_position_m,
                     direction: d,
                     strength: 1.0,
                 });
             }
+            scene.contacts.extend(snap.wall_points);
         }
         for f in active_fault_labels(&sim) {
             if !faults.contains(&f) {
