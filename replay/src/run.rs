@@ -452,31 +452,6 @@ pub struct TraceStats {
     pub last_reason: Option<String>,
 }
 
-/// Ground truth of a simulated run.
-#[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct TruthSummary {
-    /// Reached a source.
-    pub reached_source: bool,
-    /// When, s.
-    pub reached_at_s: Option<f64>,
-    /// Which source.
-    pub reached_node: Option<String>,
-    /// Wrong branches entered.
-    pub wrong_branches: u32,
-    /// Minimum true standoff (head skin to wall), m.
-    pub min_standoff_m: f64,
-    /// Wall strikes.
-    pub wall_strikes: u32,
-    /// Distance travelled, m.
-    pub distance_travelled_m: f64,
-    /// Time commanded to zero speed, s.
-    pub time_held_s: f64,
-    /// Simulated time, s.
-    pub elapsed_s: f64,
-    /// Length of the true path to the source, m.
-    pub true_path_length_m: f64,
-}
-
 /// The summary written beside a trace.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct RunSummary {
@@ -492,8 +467,8 @@ pub struct RunSummary {
     pub time_span_s: [f64; 2],
     /// Trace aggregate.
     pub trace: TraceStats,
-    /// Ground truth, when simulated.
-    pub truth: Option<TruthSummary>,
+    /// Ground truth, when simulated (the simulator's own scoring).
+    pub truth: Option<crate::sim::truth::Outcome>,
     /// Faults seen: injected by the simulator or logged as events.
     pub faults_seen: Vec<String>,
     /// Probe solves that failed, and frames the tactile layer refused.
@@ -685,18 +660,7 @@ pub fn run_live<T: Write, L: Write>(
         outcome,
         time_span_s: [first_time, sim.time_s()],
         trace: stats,
-        truth: Some(TruthSummary {
-            reached_source: o.reached_source,
-            reached_at_s: o.reached_at_s,
-            reached_node: o.reached_node.clone(),
-            wrong_branches: o.wrong_branches,
-            min_standoff_m: o.min_standoff_m,
-            wall_strikes: o.wall_strikes,
-            distance_travelled_m: o.distance_travelled_m,
-            time_held_s: o.time_held_s,
-            elapsed_s: o.elapsed_s,
-            true_path_length_m: o.true_path_length_m,
-        }),
+        truth: Some(o.clone()),
         faults_seen: faults,
         probe_errors,
         tactile_errors,
