@@ -6,6 +6,7 @@
 //! one, and compares both with the constants committed in
 //! `tests/determinism.rs`. Every new core entry point should be fed here.
 
+pub mod frame_scene;
 pub mod nav_scene;
 
 use nav_core::body::{Body, BodyConfig, ModuleSpec, SensorSpec};
