@@ -268,12 +268,12 @@ impl Conduit {
             let d1 = self.d_axis(x);
             let f = dot(r, d1);
             let df = dot(d1, d1) + dot(r, self.dd_axis(x));
-            if !(df > 0.0) {
+            if df.is_nan() || df <= 0.0 {
                 break;
             }
             let step = f / df;
             x -= step;
-            if step.abs() < 1e-13 {
+            if libm::fabs(step) < 1e-13 {
                 break;
             }
         }
@@ -607,7 +607,7 @@ impl FrameScene {
         let (mut x0, mut x1) = (x_guess, x_guess - 0.01);
         let (mut g0, mut g1) = (g(x0), g(x1));
         for _ in 0..12 {
-            if g1.abs() < 1e-13 || g1 == g0 {
+            if libm::fabs(g1) < 1e-13 || g1 == g0 {
                 break;
             }
             let x2 = x1 - g1 * (x1 - x0) / (g1 - g0);
