@@ -6,6 +6,7 @@
 //! one, and compares both with the constants committed in
 //! `tests/determinism.rs`. Every new core entry point should be fed here.
 
+pub mod frame_scene;
 pub mod nav_scene;
 
 use nav_core::body::{Body, BodyConfig, ModuleSpec, SensorSpec};
@@ -93,7 +94,8 @@ pub fn navigator_workload(d: &mut Fnv64) {
 }
 
 /// The core's own numerics: gas relations and their root-finding inverses,
-/// then a navigator run ([`navigator_workload`]).
+/// then a navigator run ([`navigator_workload`]), the tactile, probe and
+/// frame-level workloads.
 pub fn core_workload_digest() -> u64 {
     let mut d = Fnv64::new();
     let gases = [
@@ -125,7 +127,79 @@ pub fn core_workload_digest() -> u64 {
     navigator_workload(&mut d);
     tactile_workload(&mut d);
     probe_workload(&mut d);
+    frame_workload(&mut d);
     d.finish()
+}
+
+/// The frame-level navigator (`nav_core::onboard::FrameNavigator`) on an
+/// invented sensor-frame sequence ([`frame_scene`]): a short, slightly
+/// winding, narrowing conduit with a side branch near the start, the
+/// robot pressed onto the wall and rocking, with a NaN port, a contact on
+/// a missing module and a second of probe silence along the way. Every
+/// command, the stage counters and each fitted section radius are fed to
+/// `d`. No heap allocation (the navigator lives on the stack).
+pub fn frame_workload(d: &mut Fnv64) {
+    use frame_scene::{Conduit, FrameScene, Gait, Robot, SideBranch};
+    use nav_core::onboard::StandardFrameNavigator;
+    let conduit = Conduit {
+        wiggle_amplitude_m: 0.05,
+        wiggle_period_m: 2.0,
+        climb: 0.01,
+        radius_start_m: 0.1,
+        radius_end_m: 0.09,
+        narrowing_length_m: 1.0,
+        branch: Some(SideBranch {
+            at_x_m: 0.45,
+            angle_from_axis_rad: 0.9,
+            side_rad: -0.4,
+            radius_m: 0.05,
+            length_m: 1.0,
+            flow_share: 0.3,
+        }),
+        ..Conduit::straight(0.1, 40.0)
+    };
+    let placement = nav_scene::Rigid::new([-0.2, 0.4, 1.0], 1.3, [-7.0, 2.0, 0.5]);
+    let mut scene = FrameScene::new(conduit, Robot::DEMO, Gait::ROCKING, placement, 0.5, 77);
+    let Ok(mut nav) = StandardFrameNavigator::new(scene.onboard_config::<8, 48>()) else {
+        d.u64(u64::MAX);
+        return;
+    };
+    let mut fits = 0;
+    for k in 0..600u32 {
+        let mut f: SensorFrame<7, 7, 48> = scene.next_frame();
+        if k == 200
+            && let Some(p) = f.port_pressures_pa.as_mut()
+        {
+            p[2] = f64::NAN;
+        }
+        if k == 250 {
+            let _ = f.push_contact(Contact {
+                module: 8,
+                sensor: 0,
+                force_n: 1.0,
+                normal_module: None,
+            });
+        }
+        if (400..500).contains(&k) {
+            f.port_pressures_pa = None;
+        }
+        let c = nav.step(&f);
+        c.digest_into(d);
+        let ctr = nav.counters();
+        if ctr.section_fits > fits {
+            fits = ctr.section_fits;
+            match nav.last_section().map(|s| s.plane.shape) {
+                Some(SectionShape::Circle(circle)) => d.f64(circle.radius_m),
+                Some(SectionShape::LowerBoundOnly { min_radius_m, .. }) => d.f64(-min_radius_m),
+                _ => d.u64(7),
+            }
+        }
+    }
+    let ctr = nav.counters();
+    d.u64(ctr.steps);
+    d.u64(ctr.probe_errors);
+    d.u64(ctr.tactile_errors);
+    d.u64(ctr.section_fits);
 }
 
 /// Body kinematics, contact ingestion, circle and ellipse fits, sections,

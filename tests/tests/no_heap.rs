@@ -365,3 +365,57 @@ fn probe_does_not_allocate() {
     assert_eq!(n, 0, "probe allocated {n} times");
     assert!(ok);
 }
+
+#[test]
+fn frame_navigator_does_not_allocate() {
+    use nav_core::frame::{Contact, SensorFrame};
+    use nav_core::onboard::{FrameNavigator, StandardFrameNavigator};
+    use upcurrent_tests::frame_scene::{Conduit, CostFrameNavigator, FrameScene, Gait, Robot};
+    use upcurrent_tests::nav_scene::Rigid;
+    let placement = Rigid::new([0.4, 0.1, 1.0], -0.8, [2.0, -1.0, 0.3]);
+    let (n, ok) = allocations_during(|| {
+        // The scene makes frames without the heap too; built in here so
+        // nothing is hidden outside the count.
+        let mut scene = FrameScene::new(
+            Conduit::winding(),
+            Robot::DEMO,
+            Gait::ROCKING,
+            placement,
+            0.5,
+            5,
+        );
+        // Construction (both capacity sets), then stepping.
+        let small = CostFrameNavigator::new(scene.onboard_config::<8, 32>()).is_ok();
+        let mut nav: StandardFrameNavigator =
+            FrameNavigator::new(scene.onboard_config::<8, 48>()).expect("valid config");
+        let mut ok = small;
+        for k in 0..400u32 {
+            let mut f: SensorFrame<7, 7, 48> = scene.next_frame();
+            // Partial and malformed frames too: probe silent, a NaN port,
+            // a contact on a missing module, no pose.
+            match k % 50 {
+                10..=19 => f.port_pressures_pa = None,
+                23 => {
+                    if let Some(p) = f.port_pressures_pa.as_mut() {
+                        p[0] = f64::NAN;
+                    }
+                }
+                31 => {
+                    let _ = f.push_contact(Contact {
+                        module: 12,
+                        sensor: 0,
+                        force_n: 2.0,
+                        normal_module: None,
+                    });
+                }
+                40 => f.pose = None,
+                _ => {}
+            }
+            let c = nav.step(&f);
+            ok &= c.heading_map.iter().all(|v| v.is_finite()) && c.speed_m_per_s.is_finite();
+        }
+        ok && nav.counters().steps == 400 && nav.counters().tactile_errors > 0
+    });
+    assert_eq!(n, 0, "frame navigator allocated {n} times");
+    assert!(ok);
+}
