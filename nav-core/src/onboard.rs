@@ -67,8 +67,9 @@ pub struct OnboardConfig<const P: usize, const M: usize, const S: usize> {
     pub openings: OpeningSettings,
     /// Steps between cross-section fits at the head (>= 1).
     pub section_every: u32,
-    /// Steps between throat-trend evaluations (>= 1); staggered against
-    /// the section fit.
+    /// Steps between throat-trend evaluations (>= 1). The trend runs on
+    /// the first step after each period that has no section fit, so with
+    /// `section_every = 1` it never runs.
     pub throat_every: u32,
     /// Stations along the body for the throat trend (2 ..=
     /// [`MAX_THROAT_STATIONS`]).
@@ -169,6 +170,7 @@ pub struct FrameNavigator<
     last_joints: Option<[JointAngles; J]>,
     section: Option<SectionEstimate>,
     wall_template: WallObservation,
+    throat_due: bool,
     head_arc_m: f64,
     body_length_m: f64,
     counters: OnboardCounters,
@@ -242,6 +244,7 @@ impl<
             last_joints: None,
             section: None,
             wall_template: WallObservation::EMPTY,
+            throat_due: false,
             head_arc_m: 0.5 * head_len,
             body_length_m,
             counters: OnboardCounters::default(),
@@ -363,6 +366,9 @@ impl<
         let step = self.counters.steps;
         let poses = self.poses(pose)?;
         let mut w = self.wall_template;
+        if step.is_multiple_of(u64::from(self.config.throat_every)) {
+            self.throat_due = true;
+        }
         if step.is_multiple_of(u64::from(self.config.section_every)) || self.section.is_none() {
             if let Some(station) = self.body.station(&poses, self.head_arc_m) {
                 let est = self.tactile.section_at(&station, &self.config.section);
@@ -394,9 +400,10 @@ impl<
                 }
                 w.opening_count = count;
             }
-        } else if step % u64::from(self.config.throat_every)
-            == u64::from(self.config.throat_every / 2)
-        {
+        } else if self.throat_due {
+            // The first step without a section fit after the throat period
+            // came round: the two fits never share a step.
+            self.throat_due = false;
             w.throat = self.throat_now(&poses);
         }
         // This frame's touched wall points, and whether one lies across
