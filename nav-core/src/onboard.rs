@@ -364,12 +364,15 @@ impl<
         }
         let pose = pose?;
         let step = self.counters.steps;
-        let poses = self.poses(pose)?;
         let mut w = self.wall_template;
         if step.is_multiple_of(u64::from(self.config.throat_every)) {
             self.throat_due = true;
         }
-        if step.is_multiple_of(u64::from(self.config.section_every)) || self.section.is_none() {
+        let section_step =
+            step.is_multiple_of(u64::from(self.config.section_every)) || self.section.is_none();
+        if section_step {
+            // Module poses are needed only on the steps that fit something.
+            let poses = self.poses(pose)?;
             if let Some(station) = self.body.station(&poses, self.head_arc_m) {
                 let est = self.tactile.section_at(&station, &self.config.section);
                 self.counters.section_fits = self.counters.section_fits.saturating_add(1);
@@ -404,6 +407,7 @@ impl<
             // The first step without a section fit after the throat period
             // came round: the two fits never share a step.
             self.throat_due = false;
+            let poses = self.poses(pose)?;
             w.throat = self.throat_now(&poses);
         }
         // This frame's touched wall points, and whether one lies across
