@@ -221,7 +221,14 @@ fn campaign_then_merge() {
 #[test]
 fn bad_inputs_exit_2_naming_the_file() {
     let missing = scratch("no-such-log.upl");
-    let (code, _, err) = replay(&["run", s(&missing)]);
+    let (code, _, err) = replay(&[
+        "run",
+        s(&missing),
+        "--trace",
+        s(&scratch("missing.jsonl")),
+        "--summary",
+        s(&scratch("missing.summary.json")),
+    ]);
     assert_eq!(code, 2);
     assert!(err.contains("no-such-log.upl"), "{err}");
 

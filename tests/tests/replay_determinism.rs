@@ -115,14 +115,9 @@ fn campaign_results_do_not_depend_on_threads_or_shards() {
 #[test]
 fn fixed_short_run_has_the_committed_digest() {
     let sim = build_sim("demo:wrens-slot", Some(11)).expect("demo");
-    let (res, _) = run_live::<_, std::io::Sink>(
-        "demo:wrens-slot",
-        sim,
-        std::io::sink(),
-        None,
-        &opts(3.0),
-    )
-    .expect("live run");
+    let (res, _) =
+        run_live::<_, std::io::Sink>("demo:wrens-slot", sim, std::io::sink(), None, &opts(3.0))
+            .expect("live run");
     assert_eq!(res.summary.trace.steps, 301);
     assert_eq!(
         res.summary.trace.trace_digest, WRENS_11_3S_DIGEST,
