@@ -149,6 +149,10 @@ enum Command {
         /// Output folder.
         #[arg(long, value_name = "DIR", default_value = "out/demo")]
         out: PathBuf,
+        /// Stop after this much simulated time, s (default: the scenario's
+        /// duration).
+        #[arg(long, value_name = "S")]
+        max_time: Option<f64>,
     },
     /// List the built-in demo scenarios.
     Scenarios,
@@ -331,14 +335,22 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             }
             Ok(ExitCode::SUCCESS)
         }
-        Command::Demo { name, seed, out } => {
+        Command::Demo {
+            name,
+            seed,
+            out,
+            max_time,
+        } => {
             let input = format!("demo:{name}");
             let sim = build_sim(&input, seed).map_err(|e| e.to_string())?;
             let trace_path = out.join("trace.jsonl");
             let trace = create(&trace_path)?;
-            let (res, _) =
-                run_live::<_, std::io::Sink>(&input, sim, trace, None, &LiveOptions::default())
-                    .map_err(|e| e.to_string())?;
+            let opts = LiveOptions {
+                max_time_s: max_time,
+                ..LiveOptions::default()
+            };
+            let (res, _) = run_live::<_, std::io::Sink>(&input, sim, trace, None, &opts)
+                .map_err(|e| e.to_string())?;
             print_summary(&res.summary);
             let summary_path = out.join("summary.json");
             write_json(&summary_path, &res.summary)?;

@@ -1,0 +1,124 @@
+//! Replay throughput: decoding plus navigator, one core.
+//!
+//! 1. Generates a log of at least 2 million frames (over five hours at
+//!    100 Hz) of the Hollow Kettle demo into a temporary file, streaming
+//!    every frame to disk as it is made. The navigator is in the loop (the
+//!    same loop as `replay::run::run_live`); when it stops driving (it
+//!    reaches the source, or gives up) the truth-following oracle in patrol
+//!    mode (`replay::sim::Oracle::patrol`) takes over, so the robot keeps
+//!    moving and the log keeps varied frames. Reports bytes per frame.
+//! 2. Replays the log through a fresh navigator with `replay::run::run_log`,
+//!    streaming from the file, trace to `io::sink()` (the trace is still
+//!    serialised and digested, as in `replay run`). Only this is timed.
+//!
+//! `cargo run --release -p replay --example replay_throughput [-- <frames>]`
+//!
+//! Peak RSS (`VmHWM` from `/proc/self/status`) is printed after generation
+//! and after the replay; both phases stream, so neither grows with the log.
+//! Last line:
+//! `replay_throughput frames=<n> seconds=<s> frames_per_s=<x> realtime_factor=<y> peak_rss_mb=<z>`
+
+use std::io::{BufReader, BufWriter, Write};
+
+use replay::log::LogWriter;
+use replay::run::{AnyNavigator, header_for, run_log};
+use replay::sim::{MotionCommand, Oracle};
+
+fn peak_rss_mb() -> f64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| {
+            s.lines().find(|l| l.starts_with("VmHWM:")).and_then(|l| {
+                l.split_whitespace()
+                    .nth(1)
+                    .and_then(|v| v.parse::<f64>().ok())
+            })
+        })
+        .map_or(f64::NAN, |kb| kb / 1024.0)
+}
+
+fn main() -> Result<(), Box<dyn std::error::Error>> {
+    let frames: u64 = std::env::args()
+        .nth(1)
+        .and_then(|a| a.parse().ok())
+        .unwrap_or(2_016_000);
+    let demo = "demo:hollow-kettle";
+    let path = std::env::temp_dir().join(format!("replay_throughput_{}.upl", std::process::id()));
+
+    // Generation: streamed to disk.
+    let mut sim = replay::run::build_sim(demo, None)?;
+    let dt = sim.time_step_s();
+    let header = header_for(&sim, demo);
+    let file = std::fs::File::create(&path)?;
+    let mut log = LogWriter::new(BufWriter::with_capacity(1 << 16, file), &header)?;
+    let mut nav = AnyNavigator::new(sim.robot_spec(), &sim.gas_spec())?;
+    let mut oracle: Option<Oracle> = None;
+    let mut nav_frames = 0u64;
+    let t_gen = std::time::Instant::now();
+    let mut frame = sim.frame().clone();
+    for i in 0..frames {
+        log.write_frame(&frame)?;
+        let cmd = match oracle.as_mut() {
+            Some(o) => o.command(&sim),
+            None => {
+                let c = nav.step(&frame)?;
+                nav_frames += 1;
+                let gave_up = matches!(c.record.reason, nav_core::decide::ReasonCode::GaveUp);
+                if gave_up || sim.outcome().reached_source {
+                    println!(
+                        "navigator drove {} frames ({}); patrol oracle from here",
+                        i + 1,
+                        if gave_up { "gave up" } else { "reached source" }
+                    );
+                    oracle = Some(Oracle::patrol(&sim));
+                }
+                MotionCommand {
+                    heading_map: c.heading_map,
+                    speed_m_per_s: c.speed_m_per_s,
+                }
+            }
+        };
+        frame = sim.step(&cmd).clone();
+    }
+    let mut out = log.finish("replay_throughput")?;
+    out.flush()?;
+    drop(out);
+    let gen_s = t_gen.elapsed().as_secs_f64();
+    let bytes = std::fs::metadata(&path)?.len();
+    println!(
+        "generated {frames} frames ({:.2} h at {:.0} Hz, {nav_frames} with the navigator in the loop) in {gen_s:.1} s",
+        frames as f64 * dt / 3600.0,
+        1.0 / dt
+    );
+    println!(
+        "log {} : {bytes} bytes, {:.1} bytes per frame",
+        path.display(),
+        bytes as f64 / frames as f64
+    );
+    println!("peak_rss_mb after generation {:.1}", peak_rss_mb());
+
+    // Replay: timed.
+    let file = std::fs::File::open(&path)?;
+    let t0 = std::time::Instant::now();
+    let summary = run_log(
+        demo,
+        BufReader::with_capacity(1 << 16, file),
+        std::io::sink(),
+        false,
+    )?;
+    let seconds = t0.elapsed().as_secs_f64();
+    let rss = peak_rss_mb();
+    std::fs::remove_file(&path)?;
+    let n = summary.trace.steps;
+    println!(
+        "replayed {n} frames: {}, digest {}, reasons {:?}",
+        summary.outcome, summary.trace.trace_digest, summary.trace.reasons
+    );
+    println!("peak_rss_mb after replay {rss:.1}");
+    let fps = n as f64 / seconds;
+    println!(
+        "replay_throughput frames={n} seconds={seconds:.2} frames_per_s={fps:.0} realtime_factor={:.0} peak_rss_mb={rss:.1}",
+        fps * dt
+    );
+    Ok(())
+}
