@@ -804,11 +804,38 @@ struct Clearance {
     nearest_wall_point: Option<[f64; 3]>,
 }
 
+/// The circle of a section fit when the robot's own body does not
+/// contradict it: centre and radius. A fit whose radius is below the
+/// robot's radius, or that puts the head's axis outside the circle, cannot
+/// describe the conduit the head is in (the head is physically inside it):
+/// it is a fit failure (too few or clustered contacts), not evidence of a
+/// narrow conduit, and is neither steered on nor held for.
+fn credible_circle(
+    section: &Section,
+    pos: [f64; 3],
+    along: [f64; 3],
+    robot_radius_m: f64,
+) -> Option<([f64; 3], f64)> {
+    let Section::Circle {
+        centre_m,
+        radius_m,
+        radius_sigma_m,
+        ..
+    } = *section
+    else {
+        return None;
+    };
+    let inside = norm(reject(sub(centre_m, pos), along)) <= radius_m;
+    let plausible = radius_m >= robot_radius_m && radius_sigma_m.is_finite();
+    (inside && plausible).then_some((centre_m, radius_m))
+}
+
 fn clearance<const S: usize, const W: usize, const JN: usize>(
     map: &LocalMap<S, W, JN>,
     pos: [f64; 3],
     along: [f64; 3],
     section: &Section,
+    robot_radius_m: f64,
 ) -> Clearance {
     use crate::map::WallIndex;
     let mut c = Clearance {
@@ -819,10 +846,7 @@ fn clearance<const S: usize, const W: usize, const JN: usize>(
         nearest_wall_m: None,
         nearest_wall_point: None,
     };
-    if let Section::Circle {
-        centre_m, radius_m, ..
-    } = *section
-    {
+    if let Some((centre_m, radius_m)) = credible_circle(section, pos, along, robot_radius_m) {
         let off = reject(sub(centre_m, pos), along);
         let d = norm(off);
         c.centre_offset_m = Some(d);
@@ -928,7 +952,7 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     } else {
         axis.unwrap_or(last)
     };
-    let cl = clearance(map, pos, along, &p.section);
+    let cl = clearance(map, pos, along, &p.section, cfg.robot_radius_m);
     rec.standoff_m = cl.standoff_m;
     rec.section_radius_m = cl.section_radius_m;
     rec.centre_offset_m = cl.centre_offset_m;
@@ -940,7 +964,7 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     if matches!(state.phase, Phase::GaveUp) {
         return hold(rec, ReasonCode::GaveUp, next);
     }
-    if let Section::Circle { radius_m, .. } = p.section
+    if let Some((_, radius_m)) = credible_circle(&p.section, pos, along, cfg.robot_radius_m)
         && radius_m < required
     {
         return hold(rec, ReasonCode::HoldNoSafeStandoff, next);
