@@ -41,6 +41,10 @@ use crate::map::{
 
 pub use crate::map::{head_forward_map, probe_to_map};
 
+/// How far behind the head a stored wall point still counts as "beside"
+/// it for the standoff (about one body length of a demo robot), m.
+pub const WALL_BESIDE_M: f64 = 1.0;
+
 /// Wall points per wall observation.
 pub const MAX_FRAME_WALL_POINTS: usize = 32;
 
@@ -506,7 +510,8 @@ pub struct DecisionRecord {
     pub section_radius_m: Option<f64>,
     /// Head offset from the section centre (perpendicular to heading), m.
     pub centre_offset_m: Option<f64>,
-    /// Distance to the nearest stored wall point, m.
+    /// Distance to the nearest stored wall point (across the travel
+    /// direction when it lies beside or behind the head), m.
     pub nearest_wall_m: Option<f64>,
     /// Throat ahead: clear diameter, m.
     pub throat_diameter_m: Option<f64>,
@@ -854,7 +859,21 @@ fn clearance<const S: usize, const W: usize, const JN: usize>(
         c.standoff_m = Some(radius_m - d);
     }
     if let Some(h) = map.walls.nearest(pos) {
-        let d = libm::sqrt(h.dist_sq_m2);
+        // A wall point beside or behind the head (within `WALL_BESIDE_M`
+        // along the travel direction) bounds the head axis' standoff by its
+        // distance across the travel direction: the wall it lies on runs
+        // along the conduit, past the head. (Its straight-line distance
+        // overstates the standoff by the axial offset: a point felt by a
+        // sensor 0.15 m behind the head on a wall 0.06 m from the axis is
+        // 0.16 m away in a straight line.) A point ahead counts by its
+        // straight-line distance.
+        let rel = sub(h.point_m, pos);
+        let axial = dot(rel, along);
+        let d = if axial <= 0.0 && axial >= -WALL_BESIDE_M {
+            norm(reject(rel, along))
+        } else {
+            libm::sqrt(h.dist_sq_m2)
+        };
         c.nearest_wall_m = Some(d);
         c.nearest_wall_point = Some(h.point_m);
         c.standoff_m = Some(c.standoff_m.map_or(d, |s| if d < s { d } else { s }));
@@ -992,7 +1011,13 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
         let lost = flow_usable_or_weak(health)
             && rec.flow_weak_for_s >= cfg.lost_flow_s
             && p.flow_weak_since_s.is_some();
-        let cause = if w.is_some_and(|w| w.end_ahead) {
+        // A wall felt ahead is a dead end only when no flow comes through:
+        // with the flow channel usable and the flow above the lost-flow
+        // threshold, the gas is passing the robot from ahead, so the wall
+        // is a side wall the head has turned into (the wall push steers
+        // off it), not a wall across the conduit.
+        let through_flow = flow_usable && p.flow_weak_since_s.is_none();
+        let cause = if w.is_some_and(|w| w.end_ahead) && !through_flow {
             Some(BackOutCause::DeadEnd)
         } else if throat_bad {
             Some(BackOutCause::ThroatTooNarrow)
