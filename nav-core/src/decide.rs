@@ -1011,13 +1011,7 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
         let lost = flow_usable_or_weak(health)
             && rec.flow_weak_for_s >= cfg.lost_flow_s
             && p.flow_weak_since_s.is_some();
-        // A wall felt ahead is a dead end only when no flow comes through:
-        // with the flow channel usable and the flow above the lost-flow
-        // threshold, the gas is passing the robot from ahead, so the wall
-        // is a side wall the head has turned into (the wall push steers
-        // off it), not a wall across the conduit.
-        let through_flow = flow_usable && p.flow_weak_since_s.is_none();
-        let cause = if w.is_some_and(|w| w.end_ahead) && !through_flow {
+        let cause = if w.is_some_and(|w| w.end_ahead) {
             Some(BackOutCause::DeadEnd)
         } else if throat_bad {
             Some(BackOutCause::ThroatTooNarrow)
