@@ -869,7 +869,7 @@ fn clearance<const S: usize, const W: usize, const JN: usize>(
         // straight-line distance.
         let rel = sub(h.point_m, pos);
         let axial = dot(rel, along);
-        let d = if axial <= 0.0 && axial >= -WALL_BESIDE_M {
+        let d = if (-WALL_BESIDE_M..=0.0).contains(&axial) {
             norm(reject(rel, along))
         } else {
             libm::sqrt(h.dist_sq_m2)

@@ -886,7 +886,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
         // contradicts (a circle narrower than the robot, whose head is
         // inside the conduit) are artefacts of that fit, not branches.
         let contradicted = matches!(w.section, Section::Circle { radius_m, .. }
-            if !(radius_m >= dcfg.robot_radius_m));
+            if radius_m.is_nan() || radius_m < dcfg.robot_radius_m);
         if openings.is_empty() || contradicted {
             return;
         }
