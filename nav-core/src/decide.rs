@@ -41,6 +41,10 @@ use crate::map::{
 
 pub use crate::map::{head_forward_map, probe_to_map};
 
+/// How far behind the head a stored wall point still counts as "beside"
+/// it for the standoff (about one body length of a demo robot), m.
+pub const WALL_BESIDE_M: f64 = 1.0;
+
 /// Wall points per wall observation.
 pub const MAX_FRAME_WALL_POINTS: usize = 32;
 
@@ -506,7 +510,8 @@ pub struct DecisionRecord {
     pub section_radius_m: Option<f64>,
     /// Head offset from the section centre (perpendicular to heading), m.
     pub centre_offset_m: Option<f64>,
-    /// Distance to the nearest stored wall point, m.
+    /// Distance to the nearest stored wall point (across the travel
+    /// direction when it lies beside or behind the head), m.
     pub nearest_wall_m: Option<f64>,
     /// Throat ahead: clear diameter, m.
     pub throat_diameter_m: Option<f64>,
@@ -804,11 +809,38 @@ struct Clearance {
     nearest_wall_point: Option<[f64; 3]>,
 }
 
+/// The circle of a section fit when the robot's own body does not
+/// contradict it: centre and radius. A fit whose radius is below the
+/// robot's radius, or that puts the head's axis outside the circle, cannot
+/// describe the conduit the head is in (the head is physically inside it):
+/// it is a fit failure (too few or clustered contacts), not evidence of a
+/// narrow conduit, and is neither steered on nor held for.
+fn credible_circle(
+    section: &Section,
+    pos: [f64; 3],
+    along: [f64; 3],
+    robot_radius_m: f64,
+) -> Option<([f64; 3], f64)> {
+    let Section::Circle {
+        centre_m,
+        radius_m,
+        radius_sigma_m,
+        ..
+    } = *section
+    else {
+        return None;
+    };
+    let inside = norm(reject(sub(centre_m, pos), along)) <= radius_m;
+    let plausible = radius_m >= robot_radius_m && radius_sigma_m.is_finite();
+    (inside && plausible).then_some((centre_m, radius_m))
+}
+
 fn clearance<const S: usize, const W: usize, const JN: usize>(
     map: &LocalMap<S, W, JN>,
     pos: [f64; 3],
     along: [f64; 3],
     section: &Section,
+    robot_radius_m: f64,
 ) -> Clearance {
     use crate::map::WallIndex;
     let mut c = Clearance {
@@ -819,10 +851,7 @@ fn clearance<const S: usize, const W: usize, const JN: usize>(
         nearest_wall_m: None,
         nearest_wall_point: None,
     };
-    if let Section::Circle {
-        centre_m, radius_m, ..
-    } = *section
-    {
+    if let Some((centre_m, radius_m)) = credible_circle(section, pos, along, robot_radius_m) {
         let off = reject(sub(centre_m, pos), along);
         let d = norm(off);
         c.centre_offset_m = Some(d);
@@ -830,7 +859,21 @@ fn clearance<const S: usize, const W: usize, const JN: usize>(
         c.standoff_m = Some(radius_m - d);
     }
     if let Some(h) = map.walls.nearest(pos) {
-        let d = libm::sqrt(h.dist_sq_m2);
+        // A wall point beside or behind the head (within `WALL_BESIDE_M`
+        // along the travel direction) bounds the head axis' standoff by its
+        // distance across the travel direction: the wall it lies on runs
+        // along the conduit, past the head. (Its straight-line distance
+        // overstates the standoff by the axial offset: a point felt by a
+        // sensor 0.15 m behind the head on a wall 0.06 m from the axis is
+        // 0.16 m away in a straight line.) A point ahead counts by its
+        // straight-line distance.
+        let rel = sub(h.point_m, pos);
+        let axial = dot(rel, along);
+        let d = if (-WALL_BESIDE_M..=0.0).contains(&axial) {
+            norm(reject(rel, along))
+        } else {
+            libm::sqrt(h.dist_sq_m2)
+        };
         c.nearest_wall_m = Some(d);
         c.nearest_wall_point = Some(h.point_m);
         c.standoff_m = Some(c.standoff_m.map_or(d, |s| if d < s { d } else { s }));
@@ -928,7 +971,7 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     } else {
         axis.unwrap_or(last)
     };
-    let cl = clearance(map, pos, along, &p.section);
+    let cl = clearance(map, pos, along, &p.section, cfg.robot_radius_m);
     rec.standoff_m = cl.standoff_m;
     rec.section_radius_m = cl.section_radius_m;
     rec.centre_offset_m = cl.centre_offset_m;
@@ -940,7 +983,7 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     if matches!(state.phase, Phase::GaveUp) {
         return hold(rec, ReasonCode::GaveUp, next);
     }
-    if let Section::Circle { radius_m, .. } = p.section
+    if let Some((_, radius_m)) = credible_circle(&p.section, pos, along, cfg.robot_radius_m)
         && radius_m < required
     {
         return hold(rec, ReasonCode::HoldNoSafeStandoff, next);

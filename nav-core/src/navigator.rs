@@ -882,7 +882,12 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
     fn junction_upkeep(&mut self, t: f64, pos: [f64; 3], forward: [f64; 3], w: &WallObservation) {
         let dcfg = self.cfg.decide;
         let openings = w.openings();
-        if openings.is_empty() {
+        // Openings measured on a section fit the robot's own body
+        // contradicts (a circle narrower than the robot, whose head is
+        // inside the conduit) are artefacts of that fit, not branches.
+        let contradicted = matches!(w.section, Section::Circle { radius_m, .. }
+            if radius_m.is_nan() || radius_m < dcfg.robot_radius_m);
+        if openings.is_empty() || contradicted {
             return;
         }
         let merge_cos = libm::cos(0.5 * dcfg.divergence_rad);
