@@ -400,6 +400,9 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             salvage,
             max_time,
         } => {
+            if !input.starts_with("demo:") && !std::path::Path::new(&input).exists() {
+                return Err(format!("{input}: no such file"));
+            }
             let trace_w = create(&trace)?;
             let s = if is_log(&input) {
                 let f = std::fs::File::open(&input).map_err(|e| format!("{input}: {e}"))?;
@@ -474,7 +477,7 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             let wall = started.elapsed().as_secs_f64();
             if shard == Shard::ALL {
                 print!("{}", format_table(&summarise(&plan, &results)));
-                print_failures(&results);
+                print_failures(&results, max_time);
             }
             println!(
                 "{} runs in {wall:.1} s wall time; results in {}",
@@ -497,7 +500,7 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             }
             let (plan, results) = merge(shards)?;
             print!("{}", format_table(&summarise(&plan, &results)));
-            print_failures(&results);
+            print_failures(&results, None);
             if let Some(out) = out {
                 let mut w = create(&out)?;
                 write_results(&mut w, &plan, Shard::ALL, &results).map_err(|e| e.to_string())?;
@@ -533,7 +536,10 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
     }
 }
 
-fn print_failures(results: &[replay::campaign::SeedResult]) {
+/// The failing runs, each with the one command that reruns it (with the
+/// campaign's time limit, when it had one; merged shards do not record it).
+fn print_failures(results: &[replay::campaign::SeedResult], max_time: Option<f64>) {
+    let limit = max_time.map_or(String::new(), |t| format!(" --max-time {t}"));
     let failing: Vec<_> = results
         .iter()
         .filter(|r| !r.reached || r.wall_strikes > 0)
@@ -544,7 +550,7 @@ fn print_failures(results: &[replay::campaign::SeedResult]) {
     println!("failing runs ({}), each rerun by:", failing.len());
     for r in failing {
         println!(
-            "  replay run {} --seed {}    # {}",
+            "  replay run {} --seed {}{limit}    # {}",
             r.scenario,
             r.seed,
             r.failure.as_deref().unwrap_or(if r.reached {
