@@ -8,7 +8,7 @@
 
 use replay::run::{LiveOptions, build_sim, run_live};
 
-fn run(demo: &str) -> replay::run::TruthSummary {
+fn run(demo: &str) -> replay::sim::truth::Outcome {
     let input = format!("demo:{demo}");
     let sim = build_sim(&input, None).expect("demo builds");
     let opts = LiveOptions {
@@ -22,7 +22,7 @@ fn run(demo: &str) -> replay::run::TruthSummary {
     t
 }
 
-fn assert_proof(demo: &str) -> replay::run::TruthSummary {
+fn assert_proof(demo: &str) -> replay::sim::truth::Outcome {
     let t = run(demo);
     assert!(t.reached_source, "{demo}: source not reached: {t:?}");
     assert_eq!(t.wall_strikes, 0, "{demo}: wall strikes: {t:?}");
