@@ -4,7 +4,9 @@
 //! each step:
 //!
 //! 1. **probe**: port pressures → [`crate::probe::FlowSolution`] (probe
-//!    frame) → rotated into the map frame with the head pose;
+//!    frame) → rotated into the map frame with the head pose; ports the
+//!    health stage has failed are left out of the fit, with a fit on every
+//!    port each [`PORT_RECHECK_STEPS`] steps to let them back;
 //! 2. **tactile**: contacts → wall points ([`crate::tactile::TactileMap`]),
 //!    and on a fixed cadence the cross-section at the head, the throat
 //!    trend along the body and the openings around the head;
@@ -33,12 +35,17 @@ use crate::gas::IdealGas;
 use crate::map::{MAX_BRANCHES, Section, probe_to_map};
 use crate::navigator::{Command, ConfigError, NavConfig, Navigator};
 use crate::probe::{
-    Direction, FaultReport, FlowSolution, ProbeError, ProbeLayout, ProbeSolver, SolverConfig,
+    Direction, FaultReport, FlowSolution, PortSet, ProbeError, ProbeLayout, ProbeSolver,
+    SolveOptions, SolverConfig,
 };
 use crate::tactile::{
     OpeningSettings, SectionEstimate, SectionSettings, SectionShape, TactileConfig, TactileError,
     TactileMap, ThroatSettings, ThroatStatus,
 };
+
+/// Steps between fits with every port while some are excluded as failed
+/// (1 s at 100 Hz).
+pub const PORT_RECHECK_STEPS: u64 = 100;
 
 /// Most stations the throat trend looks at.
 pub const MAX_THROAT_STATIONS: usize = 6;
@@ -146,6 +153,8 @@ pub struct OnboardCounters {
     pub tactile_errors: u64,
     /// Cross-section fits run.
     pub section_fits: u64,
+    /// Probe fits that left failed ports out.
+    pub fits_without_failed_ports: u64,
 }
 
 /// The navigator as embedded: frames in, commands out.
@@ -171,6 +180,8 @@ pub struct FrameNavigator<
     section: Option<SectionEstimate>,
     wall_template: WallObservation,
     throat_due: bool,
+    excluded_ports: u32,
+    cleared_ports: u32,
     head_arc_m: f64,
     body_length_m: f64,
     counters: OnboardCounters,
@@ -245,6 +256,8 @@ impl<
             section: None,
             wall_template: WallObservation::EMPTY,
             throat_due: false,
+            excluded_ports: 0,
+            cleared_ports: 0,
             head_arc_m: 0.5 * head_len,
             body_length_m,
             counters: OnboardCounters::default(),
@@ -313,15 +326,66 @@ impl<
         total_temperature_k: Option<f64>,
         pose: &HeadPose,
     ) -> FlowObservation {
-        match self.solver.solve(pressures, total_temperature_k) {
-            Ok(sol) => flow_from_solution(
-                &sol,
-                pose,
-                &self.config.gas,
-                total_temperature_k,
-                self.config.assumed_static_temperature_k,
-                P,
-            ),
+        // Ports the health stage has failed stay out of the fit, so a
+        // persistent fault costs one fit a frame instead of a leave-one-out
+        // search every frame. Every PORT_RECHECK_STEPS steps the fit uses
+        // every port again, and only the ports that fit still blames stay
+        // out.
+        let failed = self.nav.health().failed_port_mask() & all_ports_mask(P);
+        // A port a recheck cleared is not taken out again while the health
+        // stage is still catching up with it.
+        self.cleared_ports &= failed;
+        self.excluded_ports |= failed & !self.cleared_ports;
+        let recheck = self.counters.steps.is_multiple_of(PORT_RECHECK_STEPS);
+        let solved = if self.excluded_ports != 0 && !recheck {
+            let options = SolveOptions {
+                excluded: PortSet::from_bits(self.excluded_ports),
+                start: None,
+            };
+            match self
+                .solver
+                .solve_with(pressures, total_temperature_k, &options)
+            {
+                Ok(sol) => {
+                    self.counters.fits_without_failed_ports =
+                        self.counters.fits_without_failed_ports.saturating_add(1);
+                    Ok((sol, self.excluded_ports))
+                }
+                // Too few ports left: try them all.
+                Err(_) => self
+                    .solver
+                    .solve(pressures, total_temperature_k)
+                    .map(|s| (s, 0)),
+            }
+        } else {
+            self.solver
+                .solve(pressures, total_temperature_k)
+                .map(|s| (s, 0))
+        };
+        if recheck && let Ok((sol, 0)) = &solved {
+            // Keep out only what the all-port fit still blames.
+            let keep = match sol.fault {
+                FaultReport::Consistent { .. } => 0,
+                FaultReport::Isolated { port, .. } if port < 32 => 1u32 << port,
+                _ => self.excluded_ports,
+            };
+            self.cleared_ports |= self.excluded_ports & !keep;
+            self.excluded_ports &= keep;
+        }
+        match solved {
+            Ok((sol, excluded)) => {
+                let mut f = flow_from_solution(
+                    &sol,
+                    pose,
+                    &self.config.gas,
+                    total_temperature_k,
+                    self.config.assumed_static_temperature_k,
+                    P,
+                );
+                // Still out of the fit: still failed.
+                f.port_failed_mask |= excluded;
+                f
+            }
             Err(_) => {
                 self.counters.probe_errors = self.counters.probe_errors.saturating_add(1);
                 FlowObservation {

@@ -277,3 +277,79 @@ fn malformed_frames_do_not_panic_and_leave_finite_commands() {
     assert_ne!(c.health.flow, ChannelState::Failed);
     assert_ne!(c.health.tactile, ChannelState::Failed);
 }
+
+#[test]
+fn a_failed_port_stays_out_of_the_fit_until_a_recheck_clears_it() {
+    // Port 3 reads 30 Pa high (a leak or a shifted transducer; 60 sigma)
+    // from step 100 to step 600, then reads true again. The probe isolates
+    // it, the health stage fails it, and the onboard stage then keeps it
+    // out of the fit: it must stay failed for as long as the fault lasts
+    // (no flapping back in), the heading must stay upstream, and once the
+    // fault is gone a recheck with every port must bring it back.
+    let mut gait = Gait::CENTRED;
+    gait.head_yaw_rad = deg(8.0);
+    let mut scene = FrameScene::new(
+        Conduit::straight(RADIUS_M, 40.0),
+        Robot::DEMO,
+        gait,
+        placement(),
+        0.5,
+        21,
+    );
+    let mut nav = navigator(&scene);
+    let bit = 1u32 << 3;
+    let mut first_failed = None;
+    let mut back_at = None;
+    let mut fits_out_at_600 = 0;
+    for k in 0..1200u32 {
+        if k == 600 {
+            fits_out_at_600 = nav.counters().fits_without_failed_ports;
+        }
+        let mut f: Frame = scene.next_frame();
+        if (100..600).contains(&k)
+            && let Some(p) = f.port_pressures_pa.as_mut()
+        {
+            p[3] += 30.0;
+        }
+        let c = nav.step(&f);
+        assert_finite(&c);
+        let failed = c.health.failed_ports & bit != 0;
+        if failed && first_failed.is_none() {
+            first_failed = Some(k);
+        }
+        if let Some(k0) = first_failed
+            && k < 600
+            && k > k0
+        {
+            assert!(failed, "step {k}: port 3 came back while still leaking");
+        }
+        if k >= 600 && !failed && back_at.is_none() {
+            back_at = Some(k);
+        }
+        if k > 150 {
+            let err = angle_between(c.heading_map, scene.truth().upstream_map);
+            assert!(err < deg(3.0), "step {k}: heading {err} rad off upstream");
+        }
+    }
+    let k0 = first_failed.expect("the leaking port was never failed");
+    assert!(k0 < 150, "port 3 failed only at step {k0}");
+    let back = back_at.expect("port 3 never came back after the fault cleared");
+    // One recheck period plus the health stage's recovery streak.
+    assert!(
+        back <= 600 + nav_core::onboard::PORT_RECHECK_STEPS as u32 + 40,
+        "port 3 came back only at step {back}"
+    );
+    assert_eq!(nav.counters().probe_errors, 0);
+    // While the port was failed the fits left it out (all but the
+    // rechecks), and once it was back they stopped doing so.
+    let during = 600 - u64::from(k0);
+    assert!(
+        fits_out_at_600 + during / nav_core::onboard::PORT_RECHECK_STEPS + 15 >= during,
+        "only {fits_out_at_600} of {during} fits left the failed port out"
+    );
+    let after = nav.counters().fits_without_failed_ports - fits_out_at_600;
+    assert!(
+        after <= u64::from(back - 600),
+        "{after} fits left a port out after it came back"
+    );
+}
