@@ -809,6 +809,21 @@ struct Clearance {
     nearest_wall_point: Option<[f64; 3]>,
 }
 
+impl Clearance {
+    /// The clearances a decision record already holds (no centring
+    /// direction, no wall point): what steering needs away from follow.
+    fn of_record(rec: &DecisionRecord) -> Self {
+        Self {
+            standoff_m: rec.standoff_m,
+            section_radius_m: rec.section_radius_m,
+            centre_offset_m: rec.centre_offset_m,
+            centre_vec: None,
+            nearest_wall_m: rec.nearest_wall_m,
+            nearest_wall_point: None,
+        }
+    }
+}
+
 /// The circle of a section fit when the robot's own body does not
 /// contradict it: centre and radius. A fit whose radius is below the
 /// robot's radius, or that puts the head's axis outside the circle, cannot
@@ -1315,14 +1330,7 @@ fn sampling_step(
             let mut rec = rec;
             let choice = choose_branch(j, None, cfg);
             rec.branch = Some(branch_record(j, &choice, None, cfg));
-            let cl = Clearance {
-                standoff_m: rec.standoff_m,
-                section_radius_m: rec.section_radius_m,
-                centre_offset_m: rec.centre_offset_m,
-                centre_vec: None,
-                nearest_wall_m: rec.nearest_wall_m,
-                nearest_wall_point: None,
-            };
+            let cl = Clearance::of_record(&rec);
             steer(
                 dir,
                 pos,
@@ -1393,14 +1401,7 @@ fn enter_choice(
                 .map_or(next.last_heading_map, |b| {
                     entry_heading(b, pos, cfg.arrive_m)
                 });
-            let cl = Clearance {
-                standoff_m: rec.standoff_m,
-                section_radius_m: rec.section_radius_m,
-                centre_offset_m: rec.centre_offset_m,
-                centre_vec: None,
-                nearest_wall_m: rec.nearest_wall_m,
-                nearest_wall_point: None,
-            };
+            let cl = Clearance::of_record(&rec);
             steer(
                 dir,
                 pos,
@@ -1614,14 +1615,7 @@ fn back_out_step<const S: usize, const W: usize, const JN: usize>(
             }
             next.phase = Phase::Follow;
             next.in_junction = j.parent;
-            let cl = Clearance {
-                standoff_m: rec.standoff_m,
-                section_radius_m: rec.section_radius_m,
-                centre_offset_m: rec.centre_offset_m,
-                centre_vec: None,
-                nearest_wall_m: rec.nearest_wall_m,
-                nearest_wall_point: None,
-            };
+            let cl = Clearance::of_record(&rec);
             resolve(
                 map,
                 &jj,
@@ -1642,14 +1636,7 @@ fn back_out_step<const S: usize, const W: usize, const JN: usize>(
                 cause,
             };
             let dir = unit(sub(t, pos)).unwrap_or(state.last_heading_map);
-            let cl = Clearance {
-                standoff_m: rec.standoff_m,
-                section_radius_m: rec.section_radius_m,
-                centre_offset_m: rec.centre_offset_m,
-                centre_vec: None,
-                nearest_wall_m: rec.nearest_wall_m,
-                nearest_wall_point: None,
-            };
+            let cl = Clearance::of_record(&rec);
             steer(
                 dir,
                 pos,

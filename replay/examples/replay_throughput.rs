@@ -23,21 +23,9 @@
 use std::io::{BufReader, BufWriter, Write};
 
 use replay::log::{LogReader, LogWriter, ReadOptions, Record};
+use replay::run::peak_rss_mb;
 use replay::run::{AnyNavigator, header_for, run_log};
 use replay::sim::{MotionCommand, Oracle};
-
-fn peak_rss_mb() -> f64 {
-    std::fs::read_to_string("/proc/self/status")
-        .ok()
-        .and_then(|s| {
-            s.lines().find(|l| l.starts_with("VmHWM:")).and_then(|l| {
-                l.split_whitespace()
-                    .nth(1)
-                    .and_then(|v| v.parse::<f64>().ok())
-            })
-        })
-        .map_or(f64::NAN, |kb| kb / 1024.0)
-}
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
     let frames: u64 = std::env::args()

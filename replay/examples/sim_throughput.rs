@@ -10,20 +10,8 @@
 //! Last line: `sim_throughput frames=<n> frames_per_s=<x> realtime_factor=<y> peak_rss_mb=<z>`
 //! (peak RSS is `VmHWM` from `/proc/self/status`).
 
+use replay::run::peak_rss_mb;
 use replay::sim::{Oracle, Sim};
-
-fn peak_rss_mb() -> f64 {
-    std::fs::read_to_string("/proc/self/status")
-        .ok()
-        .and_then(|s| {
-            s.lines().find(|l| l.starts_with("VmHWM:")).and_then(|l| {
-                l.split_whitespace()
-                    .nth(1)
-                    .and_then(|v| v.parse::<f64>().ok())
-            })
-        })
-        .map_or(f64::NAN, |kb| kb / 1024.0)
-}
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
     let hours: f64 = std::env::args()

@@ -853,3 +853,20 @@ pub fn campaign_job(
         Err(e) => fail(e.to_string()),
     }
 }
+
+/// Peak resident memory of this process so far, MB (`VmHWM` in
+/// `/proc/self/status`; NaN where that file does not exist). For the
+/// examples that report memory.
+#[must_use]
+pub fn peak_rss_mb() -> f64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| {
+            s.lines().find(|l| l.starts_with("VmHWM:")).and_then(|l| {
+                l.split_whitespace()
+                    .nth(1)
+                    .and_then(|v| v.parse::<f64>().ok())
+            })
+        })
+        .map_or(f64::NAN, |kb| kb / 1024.0)
+}
