@@ -18,7 +18,9 @@
 //! `-n . dq/dtheta` (the tangential terms vanish), which gives an exact
 //! Jacobian.
 
-use super::fit::{Convergence, FitError, LmSettings, Normaliser, Point2, count_f64, positive, sq};
+use super::fit::{
+    Convergence, FitError, LmSettings, Normaliser, Point2, count_f64, lm_offer, positive, sq,
+};
 use nalgebra::{Matrix3, SMatrix, SVector, Vector3};
 
 /// An ellipse in the cross-section plane.
@@ -446,23 +448,15 @@ pub fn geometric_ellipse(
         } else {
             (f64::INFINITY, jtj, jtd)
         };
-        if c_cost.is_finite() && c_cost <= cost {
-            let drop = cost - c_cost;
-            p = cand;
-            cost = c_cost;
-            jtj = c_jtj;
-            jtd = c_jtd;
-            lambda = (lambda * 0.3).max(1e-12);
-            if small || drop <= settings.cost_tolerance * cost {
-                convergence = Convergence::Converged { iterations: it };
-                break;
-            }
-        } else {
-            if small {
-                convergence = Convergence::Converged { iterations: it };
-                break;
-            }
-            lambda *= 10.0;
+        if lm_offer(
+            (&mut p, &mut cost, &mut jtj, &mut jtd, &mut lambda),
+            cand,
+            (c_cost, c_jtj, c_jtd),
+            small,
+            settings.cost_tolerance,
+        ) {
+            convergence = Convergence::Converged { iterations: it };
+            break;
         }
     }
     // Normalise: a >= b, angle in (-pi/2, pi/2]; then the covariance at

@@ -44,7 +44,7 @@
 //! Every fit works on points shifted to their mean and scaled by their RMS
 //! distance from it, so the numbers it handles are of order one.
 
-use nalgebra::{Matrix3, Matrix4, Vector3};
+use nalgebra::{Matrix3, Matrix4, SMatrix, SVector, Vector3};
 
 /// A point in the cross-section plane, m.
 pub type Point2 = [f64; 2];
@@ -724,24 +724,16 @@ fn geometric_circle_in(
         let delta = -(inv * jtd);
         let small = delta.norm() <= settings.step_tolerance * (p.norm() + settings.step_tolerance);
         let cand = p + delta;
-        let (c_cost, c_jtj, c_jtd) = circle_normal_equations(points, &norm, &cand);
-        if c_cost.is_finite() && c_cost <= cost {
-            let drop = cost - c_cost;
-            p = cand;
-            cost = c_cost;
-            jtj = c_jtj;
-            jtd = c_jtd;
-            lambda = (lambda * 0.3).max(1e-12);
-            if small || drop <= settings.cost_tolerance * cost {
-                convergence = Convergence::Converged { iterations: it };
-                break;
-            }
-        } else {
-            if small {
-                convergence = Convergence::Converged { iterations: it };
-                break;
-            }
-            lambda *= 10.0;
+        let eval = circle_normal_equations(points, &norm, &cand);
+        if lm_offer(
+            (&mut p, &mut cost, &mut jtj, &mut jtd, &mut lambda),
+            cand,
+            eval,
+            small,
+            settings.cost_tolerance,
+        ) {
+            convergence = Convergence::Converged { iterations: it };
+            break;
         }
     }
     let n = points.len();
@@ -757,6 +749,40 @@ fn geometric_circle_in(
         covariance: cov_n * s2,
         convergence,
     })
+}
+
+/// One Levenberg–Marquardt acceptance decision, shared by the circle and
+/// ellipse fits: take the candidate when it does not raise the cost (and
+/// relax the damping), otherwise stiffen the damping. Returns `true` when
+/// the fit has converged: an accepted step that was tiny or lowered the
+/// cost by at most `cost_tolerance` of it, or a rejected tiny step.
+pub(crate) fn lm_offer<const N: usize>(
+    (p, cost, jtj, jtd, lambda): (
+        &mut SVector<f64, N>,
+        &mut f64,
+        &mut SMatrix<f64, N, N>,
+        &mut SVector<f64, N>,
+        &mut f64,
+    ),
+    cand: SVector<f64, N>,
+    (c_cost, c_jtj, c_jtd): (f64, SMatrix<f64, N, N>, SVector<f64, N>),
+    small: bool,
+    cost_tolerance: f64,
+) -> bool {
+    if c_cost.is_finite() && c_cost <= *cost {
+        let drop = *cost - c_cost;
+        *p = cand;
+        *cost = c_cost;
+        *jtj = c_jtj;
+        *jtd = c_jtd;
+        *lambda = (*lambda * 0.3).max(1e-12);
+        small || drop <= cost_tolerance * *cost
+    } else {
+        if !small {
+            *lambda *= 10.0;
+        }
+        small
+    }
 }
 
 /// A monotone stand-in for the angle of `(x, y)`, in `[0, 4)`: the
