@@ -45,6 +45,11 @@ pub use crate::map::{head_forward_map, probe_to_map};
 /// it for the standoff (about one body length of a demo robot), m.
 pub const WALL_BESIDE_M: f64 = 1.0;
 
+/// A wall felt across the path with live flow whose upstream direction is
+/// within this (cosine) of the head's forward axis is the source: the flow
+/// comes out of the wall ahead.
+pub const SOURCE_AHEAD_COS: f64 = 0.9;
+
 /// Wall points per wall observation.
 pub const MAX_FRAME_WALL_POINTS: usize = 32;
 
@@ -244,6 +249,10 @@ pub struct DecideConfig {
     pub creep_speed_m_per_s: f64,
     /// Speed cap near junctions, m/s.
     pub junction_speed_m_per_s: f64,
+    /// Speed cap when the clearance is unknown (the skin is quiet and no
+    /// cross-section is known), m/s: slow enough that the first touch of
+    /// an unseen wall is gentle.
+    pub feel_speed_m_per_s: f64,
     /// Standoff excess over which speed ramps from creep to cruise, m.
     pub slow_band_m: f64,
     /// Look-ahead distance for throats, m.
@@ -354,6 +363,8 @@ pub enum Phase {
     },
     /// Nothing left to try.
     GaveUp,
+    /// Wall across the path with the flow coming through it: the source.
+    AtSource,
 }
 
 /// Decision memory carried between steps.
@@ -399,6 +410,8 @@ pub enum ReasonCode {
     HoldNoFlowAtJunction,
     /// No branch left anywhere.
     GaveUp,
+    /// Arrived: a wall across the path, and the flow comes out of it.
+    HoldAtSource,
 }
 
 /// What capped the speed.
@@ -413,8 +426,10 @@ pub enum SpeedLimit {
     Throat,
     /// Junction near.
     Junction,
-    /// Operating mode (flow-only, degraded, unknown clearance).
+    /// Operating mode (flow-only, degraded).
     Mode,
+    /// No wall within reach and no cross-section known: the feel speed.
+    Feel,
     /// Back-out speed.
     BackOut,
     /// Stopped (sampling or holding).
@@ -525,6 +540,9 @@ pub struct DecisionRecord {
     pub dynamic_pressure_pa: f64,
     /// Seconds the flow has been below the lost-flow threshold.
     pub flow_weak_for_s: f64,
+    /// Dynamic-pressure ridge cue steered on: relative lateral gradient
+    /// |grad q| / q across the flow, 1/m (see [`crate::ridge`]).
+    pub ridge_gradient_per_m: Option<f64>,
     /// What capped the speed.
     pub speed_limit: SpeedLimit,
     /// Branch comparison, when at a junction.
@@ -591,6 +609,8 @@ pub struct Perception<'a> {
     pub section: Section,
     /// This frame's wall observation.
     pub wall: Option<&'a WallObservation>,
+    /// Dynamic-pressure ridge cue (centring where no wall is felt).
+    pub ridge: Option<crate::ridge::RidgeCue>,
     /// How the frame was taken.
     pub frame: FrameDisposition,
 }
@@ -855,6 +875,7 @@ fn clearance<const S: usize, const W: usize, const JN: usize>(
     pos: [f64; 3],
     along: [f64; 3],
     section: &Section,
+    wall: Option<&WallObservation>,
     robot_radius_m: f64,
 ) -> Clearance {
     use crate::map::WallIndex;
@@ -873,24 +894,41 @@ fn clearance<const S: usize, const W: usize, const JN: usize>(
         c.centre_vec = Some(off);
         c.standoff_m = Some(radius_m - d);
     }
-    if let Some(h) = map.walls.nearest(pos) {
-        // A wall point beside or behind the head (within `WALL_BESIDE_M`
-        // along the travel direction) bounds the head axis' standoff by its
-        // distance across the travel direction: the wall it lies on runs
-        // along the conduit, past the head. (Its straight-line distance
-        // overstates the standoff by the axial offset: a point felt by a
-        // sensor 0.15 m behind the head on a wall 0.06 m from the axis is
-        // 0.16 m away in a straight line.) A point ahead counts by its
-        // straight-line distance.
-        let rel = sub(h.point_m, pos);
+    // A wall point beside or behind the head (within `WALL_BESIDE_M`
+    // along the travel direction) bounds the head axis' standoff by its
+    // distance across the travel direction: the wall it lies on runs along
+    // the conduit, past the head. (Its straight-line distance overstates
+    // the standoff by the axial offset: a point felt by a sensor 0.15 m
+    // behind the head on a wall 0.06 m from the axis is 0.16 m away in a
+    // straight line.) A point ahead counts by its straight-line distance.
+    let bound = |q: [f64; 3]| {
+        let rel = sub(q, pos);
         let axial = dot(rel, along);
-        let d = if (-WALL_BESIDE_M..=0.0).contains(&axial) {
+        if (-WALL_BESIDE_M..=0.0).contains(&axial) {
             norm(reject(rel, along))
         } else {
-            libm::sqrt(h.dist_sq_m2)
-        };
-        c.nearest_wall_m = Some(d);
-        c.nearest_wall_point = Some(h.point_m);
+            norm(rel)
+        }
+    };
+    let mut offer = |q: [f64; 3]| {
+        let d = bound(q);
+        if c.nearest_wall_m.is_none_or(|n| d < n) {
+            c.nearest_wall_m = Some(d);
+            c.nearest_wall_point = Some(q);
+        }
+    };
+    if let Some(h) = map.walls.nearest(pos) {
+        offer(h.point_m);
+    }
+    // This frame's touches count at once: the map keeps one frame of wall
+    // points per station, so a touch between stations would otherwise go
+    // unheeded until the next one.
+    if let Some(w) = wall {
+        for q in w.wall_points() {
+            offer(*q);
+        }
+    }
+    if let Some(d) = c.nearest_wall_m {
         c.standoff_m = Some(c.standoff_m.map_or(d, |s| if d < s { d } else { s }));
     }
     c
@@ -937,6 +975,7 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
         flow_dir_sigma_rad: libm::sqrt(libm::fabs(p.flow.dir_var_rad2())),
         dynamic_pressure_pa: p.flow.dynamic_pressure_pa,
         flow_weak_for_s: p.flow_weak_since_s.map_or(0.0, |t| p.time_s - t),
+        ridge_gradient_per_m: None,
         speed_limit: SpeedLimit::Stopped,
         branch: None,
     };
@@ -986,7 +1025,7 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     } else {
         axis.unwrap_or(last)
     };
-    let cl = clearance(map, pos, along, &p.section, cfg.robot_radius_m);
+    let cl = clearance(map, pos, along, &p.section, p.wall, cfg.robot_radius_m);
     rec.standoff_m = cl.standoff_m;
     rec.section_radius_m = cl.section_radius_m;
     rec.centre_offset_m = cl.centre_offset_m;
@@ -997,6 +1036,9 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     }
     if matches!(state.phase, Phase::GaveUp) {
         return hold(rec, ReasonCode::GaveUp, next);
+    }
+    if matches!(state.phase, Phase::AtSource) {
+        return hold(rec, ReasonCode::HoldAtSource, next);
     }
     if let Some((_, radius_m)) = credible_circle(&p.section, pos, along, cfg.robot_radius_m)
         && radius_m < required
@@ -1026,7 +1068,18 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
         let lost = flow_usable_or_weak(health)
             && rec.flow_weak_for_s >= cfg.lost_flow_s
             && p.flow_weak_since_s.is_some();
-        let cause = if w.is_some_and(|w| w.end_ahead) {
+        // A wall across the path is a dead end only where the air is
+        // still (blind ends carry no flow). With live flow it is either
+        // the source, when the flow comes straight out of it, or a bend or
+        // a rock the wall push steers round.
+        let end_ahead = w.is_some_and(|w| w.end_ahead);
+        let live = flow_usable && p.flow_weak_since_s.is_none();
+        if end_ahead && live && upstream.is_some_and(|u| dot(u, p.forward_map) >= SOURCE_AHEAD_COS)
+        {
+            next.phase = Phase::AtSource;
+            return hold(rec, ReasonCode::HoldAtSource, next);
+        }
+        let cause = if end_ahead && !live {
             Some(BackOutCause::DeadEnd)
         } else if throat_bad {
             Some(BackOutCause::ThroatTooNarrow)
@@ -1126,7 +1179,7 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
                 return resolve(map, j, p, pos, &cl, rec, state, cfg, health, None);
             }
         }
-        Phase::BackOut { .. } | Phase::GaveUp => {}
+        Phase::BackOut { .. } | Phase::GaveUp | Phase::AtSource => {}
     }
 
     // -------------------------------------------------------------- follow
@@ -1188,6 +1241,16 @@ fn steer(
             c = scale(c, 1.0 / m);
         }
         h = add(h, c);
+    } else if let Some(cue) = p.ridge
+        && matches!(
+            reason,
+            ReasonCode::FollowUpstream | ReasonCode::FollowFlowOnly
+        )
+    {
+        // No cross-section to centre on: climb the dynamic-pressure ridge,
+        // with the dither that keeps the ridge observable.
+        h = add(add(h, cue.tilt), cue.dither);
+        rec.ridge_gradient_per_m = cue.relative_gradient_per_m;
     }
     let mut reason = reason;
     if let (Some(d), Some(wp)) = (cl.nearest_wall_m, cl.nearest_wall_point)
@@ -1226,7 +1289,7 @@ fn steer(
                 reason = ReasonCode::Recentre;
             }
         }
-        None => cap(creep, SpeedLimit::Mode, &mut v, &mut limit),
+        None => cap(cfg.feel_speed_m_per_s, SpeedLimit::Feel, &mut v, &mut limit),
     }
     if let Some(t) = p.wall.and_then(|w| w.throat) {
         let f = clamp01(t.distance_ahead_m / cfg.throat_lookahead_m);

@@ -15,11 +15,12 @@
 //! - The flow channel is failed when its last valid solution is older than
 //!   `flow_timeout_s`, or fewer than `min_ports_usable` ports are not failed;
 //!   degraded when any port is suspect or failed, or the last solution was
-//!   marked degraded. The tactile channel is failed when its last usable
-//!   cross-section is older than `tactile_timeout_s`, or fewer than
-//!   `min_contacts_usable` sensors are not failed; degraded when the last
-//!   section was only a lower bound or more than a quarter of the sensors
-//!   are suspect or failed.
+//!   marked degraded. The tactile channel is failed when its last report is
+//!   older than `tactile_timeout_s` (a quiet skin, no wall within reach,
+//!   counts as a report: knowing no wall is near is not a fault), or fewer
+//!   than `min_contacts_usable` sensors are not failed; degraded when the
+//!   last section was only a lower bound or more than a quarter of the
+//!   sensors are suspect or failed.
 //! - Mode hysteresis: a move to a *more severe* mode happens at once (safety
 //!   first); a move to a less severe one only after the better candidate has
 //!   held for `mode_recover_s` seconds without interruption.
@@ -258,8 +259,6 @@ pub struct HealthReport {
     pub contact_failed_mask: u64,
     /// The tactile layer reported this frame.
     pub tactile_reported: bool,
-    /// A usable cross-section (full fit or lower bound) this frame.
-    pub section_usable: bool,
     /// The section was a lower bound only.
     pub section_lower_bound_only: bool,
 }
@@ -395,9 +394,10 @@ impl<const P: usize, const C: usize> HealthState<P, C> {
                     changes = changes.saturating_add(1);
                 }
             }
-            if r.section_usable {
-                self.tactile.last_good_s = time_s;
-            }
+            // A quiet skin (no wall within reach) is a report too: the
+            // channel is alive. Whether a cross-section is known is a
+            // clearance question for the decision stage, not a fault.
+            self.tactile.last_good_s = time_s;
         }
         self.sensor_changes = changes;
 
@@ -505,7 +505,6 @@ mod tests {
             probe_reported: true,
             flow_valid: true,
             tactile_reported: true,
-            section_usable: true,
             ..HealthReport::default()
         }
     }

@@ -44,4 +44,5 @@ pub mod navigator;
 pub mod num;
 pub mod onboard;
 pub mod probe;
+pub mod ridge;
 pub mod tactile;

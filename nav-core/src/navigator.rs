@@ -27,8 +27,8 @@ use crate::digest::Fnv64;
 use crate::frame::HeadPose;
 use crate::health::{HealthConfig, HealthReport, HealthState, OperatingMode};
 use crate::map::{
-    FlowEstimate, Junction, LocalMap, Section, Station, WallIndex, disc_area_m2, dist_sq, dot,
-    finite3, head_forward_map, mass_flux_proxy, scale, unit,
+    FlowEstimate, Junction, LocalMap, Section, Station, WallIndex, add, disc_area_m2, dist_sq, dot,
+    finite3, head_forward_map, mass_flux_proxy, scale, sub, unit,
 };
 
 /// One step's input: what the probe and tactile layers made of one sensor
@@ -93,6 +93,7 @@ impl Command {
         d.f64(r.flow_dir_sigma_rad);
         d.f64(r.dynamic_pressure_pa);
         d.f64(r.flow_weak_for_s);
+        d.f64(r.ridge_gradient_per_m.unwrap_or(-1.0));
         if let Some(b) = &r.branch {
             d.u64(u64::from(b.junction));
             d.u64(b.chosen.map_or(99, u64::from));
@@ -126,6 +127,7 @@ pub fn phase_code(p: &Phase) -> u64 {
             ..
         } => 4 | (u64::from(junction) << 8) | (u64::from(cursor_seq) << 24),
         Phase::GaveUp => 5,
+        Phase::AtSource => 6,
     }
 }
 
@@ -145,6 +147,8 @@ pub struct NavConfig {
     pub flow_outlier_rad: f64,
     /// Consecutive outliers that reset the filter to the observation.
     pub flow_outlier_reset: u8,
+    /// Centring on the dynamic-pressure ridge where no wall is felt.
+    pub ridge: crate::ridge::RidgeConfig,
     /// Distance between stations, m.
     pub station_spacing_m: f64,
     /// Late frames within this are merged (wall points only), s.
@@ -200,6 +204,8 @@ pub enum ConfigField {
     HealthTimes,
     /// Filter noise settings.
     FilterNoise,
+    /// `ridge.*` (dynamic-pressure ridge seeking).
+    Ridge,
     /// `station_spacing_m`.
     StationSpacing,
     /// `reorder_window_s` / `pose_timeout_s`.
@@ -266,6 +272,7 @@ impl NavConfig {
                 cruise_speed_m_per_s: 0.3,
                 creep_speed_m_per_s: 0.05,
                 junction_speed_m_per_s: 0.1,
+                feel_speed_m_per_s: 0.15,
                 slow_band_m: 2.0 * r,
                 throat_lookahead_m: 20.0 * r,
                 centring_gain: 1.0,
@@ -295,6 +302,7 @@ impl NavConfig {
             dynamic_pressure_process_noise_pa2_per_s: 1.0,
             flow_outlier_rad: 1.2,
             flow_outlier_reset: 5,
+            ridge: crate::ridge::RidgeConfig::for_robot(r),
             station_spacing_m: 2.0 * r,
             reorder_window_s: 0.2,
             pose_timeout_s: 0.5,
@@ -316,7 +324,9 @@ impl NavConfig {
             F::Speeds,
             d.cruise_speed_m_per_s,
             d.cruise_speed_m_per_s >= d.junction_speed_m_per_s
-                && d.junction_speed_m_per_s >= d.creep_speed_m_per_s,
+                && d.junction_speed_m_per_s >= d.creep_speed_m_per_s
+                && d.cruise_speed_m_per_s >= d.feel_speed_m_per_s
+                && d.feel_speed_m_per_s >= d.creep_speed_m_per_s,
         )?;
         pos(F::SlowBand, d.slow_band_m)?;
         pos(F::ThroatLookahead, d.throat_lookahead_m)?;
@@ -376,6 +386,7 @@ impl NavConfig {
             self.flow_outlier_rad,
             self.flow_outlier_rad > 0.0 && self.flow_outlier_rad <= core::f64::consts::PI,
         )?;
+        check(F::Ridge, self.ridge.window_m, self.ridge.is_valid())?;
         pos(F::StationSpacing, self.station_spacing_m)?;
         nonneg(F::FrameTiming, self.reorder_window_s)?;
         pos(F::FrameTiming, self.pose_timeout_s)?;
@@ -415,6 +426,21 @@ impl FlowFilter {
 
     fn update(&mut self, o: &FlowObservation, dir: [f64; 3], t: f64, cfg: &NavConfig) {
         use nalgebra::{Matrix3, Vector3};
+        // A reading within the outlier angle of the *reverse* of the fused
+        // direction is its mirror image: under the sphere model a flow and
+        // its reverse give the same port pressures (Cp depends on
+        // sin^2 theta), so a head turned away from the flow reads the flow
+        // as coming from ahead. Take the reverse; the fused history fixes
+        // the sense.
+        let dir = match self.est.velocity_dir_map {
+            Some(x0)
+                if x0[0] * dir[0] + x0[1] * dir[1] + x0[2] * dir[2]
+                    < -libm::cos(cfg.flow_outlier_rad) =>
+            {
+                [-dir[0], -dir[1], -dir[2]]
+            }
+            _ => dir,
+        };
         let dt = if self.last_update_s.is_finite() {
             let d = t - self.last_update_s;
             if d > 0.0 { d } else { 0.0 }
@@ -570,6 +596,11 @@ pub struct Navigator<
     health: HealthState<P, C>,
     map: LocalMap<S, W, JN>,
     filter: FlowFilter,
+    ridge: crate::ridge::RidgeSeeker,
+    /// Smoothed head velocity from successive poses, map frame, m/s.
+    head_velocity: Option<[f64; 3]>,
+    /// The pose before the current one (position, time).
+    prev_pose: Option<([f64; 3], f64)>,
     section: Section,
     section_time_s: f64,
     state: DecideState,
@@ -607,6 +638,9 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             health: HealthState::new(c.health),
             map: LocalMap::new(),
             filter: FlowFilter::NEW,
+            ridge: crate::ridge::RidgeSeeker::NEW,
+            head_velocity: None,
+            prev_pose: None,
             section: Section::Unknown,
             section_time_s: f64::NEG_INFINITY,
             state: DecideState {
@@ -659,6 +693,41 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
         }
     }
 
+    /// Smoothed head velocity from pose differences (an exponential mean
+    /// over about five frames; a gap over 0.2 s restarts it).
+    fn track_head_velocity(&mut self, pos: [f64; 3], t: f64) {
+        if let Some((p0, t0)) = self.prev_pose {
+            let dt = t - t0;
+            if dt > 0.0 && dt <= 0.2 {
+                let v = scale(sub(pos, p0), 1.0 / dt);
+                self.head_velocity = Some(match self.head_velocity {
+                    Some(h) if finite3(h) => add(scale(h, 0.8), scale(v, 0.2)),
+                    _ => v,
+                });
+            } else {
+                self.head_velocity = None;
+            }
+        }
+        self.prev_pose = Some((pos, t));
+    }
+
+    /// The dynamic pressure of the gas itself: the probe reads the flow
+    /// relative to the moving head, `v_rel = v_gas - v_head`, so add the
+    /// head velocity back (the observation's direction is the relative
+    /// flow's). Without a head velocity, the probe's own reading.
+    fn gas_dynamic_pressure_pa(&self, o: &FlowObservation, dir: [f64; 3]) -> f64 {
+        let rho = o.density_kg_per_m3;
+        let q = o.dynamic_pressure_pa;
+        match self.head_velocity {
+            Some(vh) if rho > 0.0 && q > 0.0 && finite3(vh) => {
+                let speed = libm::sqrt(2.0 * q / rho);
+                let v = add(scale(dir, speed), vh);
+                0.5 * rho * dot(v, v)
+            }
+            _ => q,
+        }
+    }
+
     fn repeat(&self, time_s: f64, disp: FrameDisposition) -> Command {
         match self.last {
             Some(mut c) => {
@@ -682,6 +751,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
                     flow_dir_sigma_rad: 0.0,
                     dynamic_pressure_pa: 0.0,
                     flow_weak_for_s: 0.0,
+                    ridge_gradient_per_m: None,
                     speed_limit: SpeedLimit::Stopped,
                     branch: None,
                 };
@@ -723,6 +793,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
         // Pose.
         match obs.pose {
             Some(p) if pose_ok(&p) => {
+                self.track_head_velocity(p.position_m, t);
                 self.pose = Some(p);
                 self.pose_time_s = t;
             }
@@ -770,15 +841,19 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             contact_suspect_mask: wall.map_or(0, |w| w.contact_suspect_mask),
             contact_failed_mask: wall.map_or(0, |w| w.contact_failed_mask),
             tactile_reported: wall.is_some(),
-            section_usable: wall.is_some_and(|w| !matches!(w.section, Section::Unknown)),
             section_lower_bound_only: wall
                 .is_some_and(|w| matches!(w.section, Section::LowerBoundOnly { .. })),
         };
         self.health.update(&rep, t);
 
-        // Streamline filter.
+        // Streamline filter, and the dynamic pressure along the path for
+        // the ridge cue (this frame's reading: the fused value lags).
         if let (Some(o), Some(d)) = (obs.flow.as_ref(), flow_dir) {
             self.filter.update(o, d, t, &self.cfg);
+            if let (Some(pos), Some(v)) = (position, self.filter.est.velocity_dir_map) {
+                let q = self.gas_dynamic_pressure_pa(o, v);
+                self.ridge.add(pos, q, v, &self.cfg.ridge);
+            }
         }
         if t - self.filter.last_update_s > self.cfg.health.flow_timeout_s {
             // Stale flow is not evidence of weak flow.
@@ -797,7 +872,10 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
         }
 
         // Map upkeep.
-        let retracing = matches!(self.state.phase, Phase::BackOut { .. } | Phase::GaveUp);
+        let retracing = matches!(
+            self.state.phase,
+            Phase::BackOut { .. } | Phase::GaveUp | Phase::AtSource
+        );
         if let Some(pos) = position {
             if !retracing {
                 let far = self.map.tip_station().is_none_or(|s| {
@@ -818,6 +896,11 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             mode: self.health.mode,
             flags: self.flags(),
         };
+        let ridge = match (self.filter.est.velocity_dir_map, self.pose.as_ref()) {
+            (Some(v), Some(pose)) => crate::map::probe_to_map([0.0, 1.0, 0.0], pose)
+                .map(|left| self.ridge.cue(v, left, &self.cfg.ridge)),
+            _ => None,
+        };
         let perception = Perception {
             time_s: t,
             position_m: position,
@@ -826,6 +909,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             flow_weak_since_s: self.filter.weak_since_s,
             section: self.section,
             wall: wall.as_ref(),
+            ridge,
             frame: disp,
         };
         let d: Decision = decide(&self.map, &view, &perception, &self.state, &dcfg);

@@ -423,8 +423,9 @@ impl<
                 return None;
             }
         } else if self.section.is_none() {
-            // Nothing felt yet and nothing to report.
-            return None;
+            // Nothing felt yet: the skin is quiet, which is itself a report
+            // (no wall within reach), with no geometry.
+            return Some(WallObservation::EMPTY);
         }
         let pose = pose?;
         let step = self.counters.steps;
