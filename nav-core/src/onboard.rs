@@ -99,8 +99,21 @@ impl<const P: usize, const M: usize, const S: usize> OnboardConfig<P, M, S> {
             .take(body.module_count)
             .map(|m| m.radius_m)
             .fold(0.0, f64::max);
+        let thinnest = body
+            .modules
+            .iter()
+            .take(body.module_count)
+            .map(|m| m.radius_m)
+            .fold(f64::INFINITY, f64::min);
         let mut section = SectionSettings::default();
         section.fit.ellipse_min_coverage_rad = f64::INFINITY;
+        // A wall the skin touches is at least the thinnest module's radius
+        // from its axis, less the skin's give (taken as a tenth of it).
+        section.fit.min_radius_m = if thinnest.is_finite() {
+            0.9 * thinnest
+        } else {
+            0.0
+        };
         section.half_window_m = 2.0 * radius;
         section.max_distance_m = 12.0 * radius;
         section.max_age_s = 30.0;

@@ -87,6 +87,8 @@ impl RidgeConfig {
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct RidgeSeeker {
     sw: f64,
+    sw2: f64,
+    sqq: f64,
     sx: [f64; 3],
     sxx: [[f64; 3]; 3],
     sq: f64,
@@ -115,6 +117,8 @@ impl RidgeSeeker {
     /// Empty state.
     pub const NEW: Self = Self {
         sw: 0.0,
+        sw2: 0.0,
+        sqq: 0.0,
         sx: [0.0; 3],
         sxx: [[0.0; 3]; 3],
         sq: 0.0,
@@ -167,7 +171,9 @@ impl RidgeSeeker {
             // x' = x - d for every stored sample.
             let f = libm::exp(-step / cfg.window_m);
             self.sw *= f;
+            self.sw2 *= f * f;
             self.sq *= f;
+            self.sqq *= f;
             for i in 0..3 {
                 self.sx[i] *= f;
                 self.sxq[i] *= f;
@@ -187,7 +193,9 @@ impl RidgeSeeker {
         self.anchor = Some(pos);
         // The new sample sits at the origin: it adds to sw and sq only.
         self.sw += 1.0;
+        self.sw2 += 1.0;
         self.sq += q_pa;
+        self.sqq += q_pa * q_pa;
     }
 
     /// The cue for flow moving along `velocity_dir` (unit, map frame), with
@@ -272,9 +280,35 @@ impl RidgeSeeker {
                 *v += lambda;
             }
         }
-        solve3(&c, cq)
+        let g = solve3(&c, cq)?;
+        // Significance: the lateral gradient must stand clear of its own
+        // standard error (residual variance over the effective sample
+        // count, through the inverse position covariance), and the fit
+        // must explain the data (a throat or a shock makes q change along
+        // the path faster than a straight line follows: the residuals grow
+        // and the cue stands down).
+        let q_var = self.sqq / self.sw - qm * qm;
+        let resid_var = q_var - dot(cq, g);
+        let n_eff = self.sw * self.sw / self.sw2;
+        let gl = reject(g, u);
+        let e = unit(gl)?;
+        let ce = solve3(&c, e)?;
+        let se2 = resid_var.max(0.0) * dot(e, ce) / (n_eff - 4.0).max(1.0);
+        let gl_n = norm(gl);
+        let along = libm::fabs(dot(g, u));
+        let significant = gl_n * gl_n > SIGNIFICANCE_T2 * se2;
+        let smooth = along <= MAX_ALONG_REL_GRADIENT_PER_M * qm;
+        (significant && smooth && resid_var.is_finite()).then_some(g)
     }
 }
+
+/// Squared t-value the lateral gradient must exceed (3 standard errors).
+const SIGNIFICANCE_T2: f64 = 9.0;
+
+/// Along-flow relative gradient of q above which the conduit is changing
+/// too fast for the straight-line model (throats, shocks, junction mixing),
+/// 1/m.
+const MAX_ALONG_REL_GRADIENT_PER_M: f64 = 0.5;
 
 fn cross(a: [f64; 3], b: [f64; 3]) -> [f64; 3] {
     [

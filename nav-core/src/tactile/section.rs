@@ -28,7 +28,7 @@
 //! [`fit_plane_section`] never returns a wild radius: too few points or
 //! degenerate data give [`SectionShape::Unknown`]; collinear data, short
 //! arcs, an unconverged solver, a radius whose sigma is a large fraction of
-//! itself or a radius beyond the plausible limit give
+//! itself, a radius beyond the plausible limit or below the body's give
 //! [`SectionShape::LowerBoundOnly`] with a radius the data support from
 //! below: at least half the points' extent, and, where the geometric fit
 //! ran, `1 / (kappa + k sigma_kappa)` with the fitted curvature `kappa`
@@ -54,6 +54,10 @@ pub struct SectionFitSettings {
     /// Largest plausible radius, m; beyond it: lower bound only (capped
     /// here).
     pub max_radius_m: f64,
+    /// Smallest plausible radius, m: the body lies inside the conduit, so
+    /// a circle through its contacts narrower than the body is noise on a
+    /// few close points; below it: lower bound only, at this radius.
+    pub min_radius_m: f64,
     /// Sigmas of curvature margin in the lower bound.
     pub lower_bound_sigmas: f64,
     /// Coverage at or above which an ellipse is also fitted, rad.
@@ -71,6 +75,7 @@ impl Default for SectionFitSettings {
             min_coverage_rad: 30.0_f64.to_radians(),
             max_relative_radius_sigma: 0.2,
             max_radius_m: 10.0,
+            min_radius_m: 0.0,
             lower_bound_sigmas: 2.0,
             ellipse_min_coverage_rad: 240.0_f64.to_radians(),
             ellipse_min_points: 10,
@@ -103,6 +108,9 @@ pub enum LowerBoundReason {
     BeyondLimit,
     /// The geometric solver did not converge.
     NotConverged,
+    /// The radius is below the smallest plausible one (narrower than the
+    /// body that touched it).
+    BelowBody,
 }
 
 /// A fitted circular section, in the section plane.
@@ -244,6 +252,13 @@ pub fn fit_plane_section(points: &[Point2], settings: &SectionFitSettings) -> Pl
     }
     if !at_most(r, settings.max_radius_m) {
         return lower(bound(), LowerBoundReason::BeyondLimit, coverage);
+    }
+    if r < settings.min_radius_m {
+        return lower(
+            bound().max(settings.min_radius_m),
+            LowerBoundReason::BelowBody,
+            coverage,
+        );
     }
     let ellipse = if coverage >= settings.ellipse_min_coverage_rad
         && n >= settings.ellipse_min_points.max(6)
