@@ -1040,8 +1040,14 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     if matches!(state.phase, Phase::AtSource) {
         return hold(rec, ReasonCode::HoldAtSource, next);
     }
+    // A section narrower than the required standoff stops the robot only
+    // while the skin is actually squeezed (two or more touches this frame):
+    // a remembered fit through a few close points, with nothing touching
+    // now, would otherwise hold it for ever.
+    let squeezed = p.wall.is_some_and(|w| w.wall_point_count >= 2);
     if let Some((_, radius_m)) = credible_circle(&p.section, pos, along, cfg.robot_radius_m)
         && radius_m < required
+        && squeezed
     {
         return hold(rec, ReasonCode::HoldNoSafeStandoff, next);
     }
@@ -1242,13 +1248,17 @@ fn steer(
         }
         h = add(h, c);
     } else if let Some(cue) = p.ridge
+        && !cl.nearest_wall_m.is_some_and(|d| d < required)
         && matches!(
             reason,
             ReasonCode::FollowUpstream | ReasonCode::FollowFlowOnly
         )
     {
         // No cross-section to centre on: climb the dynamic-pressure ridge,
-        // with the dither that keeps the ridge observable.
+        // with the dither that keeps the ridge observable. Not while a wall
+        // is within the required standoff: then only the push below
+        // steers, so neither the cue nor the dither can hold the robot
+        // against the wall.
         h = add(add(h, cue.tilt), cue.dither);
         rec.ridge_gradient_per_m = cue.relative_gradient_per_m;
     }
