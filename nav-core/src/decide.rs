@@ -1074,18 +1074,25 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
         let lost = flow_usable_or_weak(health)
             && rec.flow_weak_for_s >= cfg.lost_flow_s
             && p.flow_weak_since_s.is_some();
-        // A wall across the path is a dead end only where the air is
-        // still (blind ends carry no flow). With live flow it is either
-        // the source, when the flow comes straight out of it, or a bend or
-        // a rock the wall push steers round.
+        // A wall across the path with still air is a dead end (blind ends
+        // carry no flow). With live flow coming straight out of it, it is
+        // the end of the way passable to the robot (rubble, a grate, the
+        // source itself): back out to the next branch if a junction is
+        // behind, or hold there as arrived when none is. With live flow
+        // that does not come out of it, it is a bend or a rock the wall
+        // push steers round.
         let end_ahead = w.is_some_and(|w| w.end_ahead);
         let live = flow_usable && p.flow_weak_since_s.is_none();
-        if end_ahead && live && upstream.is_some_and(|u| dot(u, p.forward_map) >= SOURCE_AHEAD_COS)
-        {
+        let out_of_it = upstream.is_some_and(|u| dot(u, p.forward_map) >= SOURCE_AHEAD_COS);
+        let junction_behind = matches!(state.phase, Phase::Enter { .. })
+            || state
+                .in_junction
+                .is_some_and(|id| map.junctions.get(id).is_some());
+        if end_ahead && live && out_of_it && !junction_behind {
             next.phase = Phase::AtSource;
             return hold(rec, ReasonCode::HoldAtSource, next);
         }
-        let cause = if end_ahead && !live {
+        let cause = if end_ahead && (!live || out_of_it) {
             Some(BackOutCause::DeadEnd)
         } else if throat_bad {
             Some(BackOutCause::ThroatTooNarrow)

@@ -174,20 +174,26 @@ impl RidgeSeeker {
             self.sw2 *= f * f;
             self.sq *= f;
             self.sqq *= f;
-            for i in 0..3 {
-                self.sx[i] *= f;
-                self.sxq[i] *= f;
-                for j in 0..3 {
-                    self.sxx[i][j] *= f;
-                }
+            for v in self.sx.iter_mut().chain(self.sxq.iter_mut()) {
+                *v *= f;
+            }
+            for v in self.sxx.iter_mut().flatten() {
+                *v *= f;
             }
             let sx = self.sx;
-            for i in 0..3 {
-                for j in 0..3 {
-                    self.sxx[i][j] += -sx[i] * d[j] - d[i] * sx[j] + self.sw * d[i] * d[j];
+            let (sw, sq) = (self.sw, self.sq);
+            for (((row, &sxi), &di), (sxqi, sxi_mut)) in self
+                .sxx
+                .iter_mut()
+                .zip(sx.iter())
+                .zip(d.iter())
+                .zip(self.sxq.iter_mut().zip(self.sx.iter_mut()))
+            {
+                for ((v, &sxj), &dj) in row.iter_mut().zip(sx.iter()).zip(d.iter()) {
+                    *v += -sxi * dj - di * sxj + sw * di * dj;
                 }
-                self.sxq[i] -= self.sq * d[i];
-                self.sx[i] -= self.sw * d[i];
+                *sxqi -= sq * di;
+                *sxi_mut -= sw * di;
             }
         }
         self.anchor = Some(pos);
@@ -260,11 +266,16 @@ impl RidgeSeeker {
         let qm = self.sq / self.sw;
         let mut c = [[0.0; 3]; 3];
         let mut cq = [0.0; 3];
-        for i in 0..3 {
-            for j in 0..3 {
-                c[i][j] = self.sxx[i][j] / self.sw - m[i] * m[j];
+        for (((crow, srow), &mi), (cqi, &sxqi)) in c
+            .iter_mut()
+            .zip(self.sxx.iter())
+            .zip(m.iter())
+            .zip(cq.iter_mut().zip(self.sxq.iter()))
+        {
+            for ((v, &s), &mj) in crow.iter_mut().zip(srow.iter()).zip(m.iter()) {
+                *v = s / self.sw - mi * mj;
             }
-            cq[i] = self.sxq[i] / self.sw - m[i] * qm;
+            *cqi = sxqi / self.sw - mi * qm;
         }
         // Lateral spread: total variance less the along-flow part.
         let cu = mat_vec(&c, u);

@@ -41,13 +41,10 @@ fn wrens_slot_reaches_source_and_never_takes_the_slot() {
     assert_eq!(t.wrong_branches, 0, "wrens-slot: wrong branches: {t:?}");
 }
 
-/// Known failing (see the closedloop branch report): in the wide drifts the
-/// flow-only robot drifts off the centreline (probe misalignment and
-/// odometry attitude walk bias the streamline; nothing in a 0.6 m drift is
-/// felt until the skin touches), scrapes the side walls and passes the
-/// Lamp Raise source 0.59 m off its node (reach distance 0.5 m).
+/// The wide drifts (0.5-0.7 m radius against a 0.06 m robot) are felt only
+/// where the skin touches; the navigator centres on the dynamic-pressure
+/// ridge there (`nav_core::ridge`).
 #[test]
-#[ignore = "known failing: no centring cue in wide conduits yet (closedloop report)"]
 fn saltpetre_drift_reaches_source_without_touching() {
     assert_proof("saltpetre-drift");
 }

@@ -600,3 +600,33 @@ fn geometric_radius_is_unbiased_within_its_covariance() {
         "Kasa bias {mean_kasa} should exceed 3 SE {se}"
     );
 }
+
+#[test]
+fn a_circle_narrower_than_the_body_is_only_a_lower_bound() {
+    // Twelve points on a whole 30 mm circle: a good fit, but a body of
+    // 60 mm radius touched them, so the conduit is at least that wide.
+    let ring: Vec<[f64; 2]> = (0..12)
+        .map(|i| {
+            let t = TAU * f64::from(i) / 12.0;
+            [0.03 * t.cos(), 0.03 * t.sin()]
+        })
+        .collect();
+    let free = SectionFitSettings::default();
+    assert!(matches!(
+        fit_plane_section(&ring, &free).shape,
+        SectionShape::Circle(_)
+    ));
+    let set = SectionFitSettings {
+        min_radius_m: 0.054,
+        ..SectionFitSettings::default()
+    };
+    let SectionShape::LowerBoundOnly {
+        min_radius_m,
+        reason,
+    } = fit_plane_section(&ring, &set).shape
+    else {
+        panic!("a 30 mm circle under a 54 mm floor must be a lower bound");
+    };
+    assert_eq!(reason, LowerBoundReason::BelowBody);
+    assert!(min_radius_m >= 0.054, "{min_radius_m}");
+}
