@@ -599,8 +599,6 @@ pub struct Navigator<
     ridge: crate::ridge::RidgeSeeker,
     /// Smoothed head velocity from successive poses, map frame, m/s.
     head_velocity: Option<[f64; 3]>,
-    /// The pose before the current one (position, time).
-    prev_pose: Option<([f64; 3], f64)>,
     section: Section,
     section_time_s: f64,
     state: DecideState,
@@ -640,7 +638,6 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             filter: FlowFilter::NEW,
             ridge: crate::ridge::RidgeSeeker::NEW,
             head_velocity: None,
-            prev_pose: None,
             section: Section::Unknown,
             section_time_s: f64::NEG_INFINITY,
             state: DecideState {
@@ -696,8 +693,9 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
     /// Smoothed head velocity from pose differences (an exponential mean
     /// over about five frames; a gap over 0.2 s restarts it).
     fn track_head_velocity(&mut self, pos: [f64; 3], t: f64) {
-        if let Some((p0, t0)) = self.prev_pose {
-            let dt = t - t0;
+        // `self.pose` is still the previous pose here.
+        if let Some(p0) = self.pose.map(|p| p.position_m) {
+            let dt = t - self.pose_time_s;
             if dt > 0.0 && dt <= 0.2 {
                 let v = scale(sub(pos, p0), 1.0 / dt);
                 self.head_velocity = Some(match self.head_velocity {
@@ -708,7 +706,6 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
                 self.head_velocity = None;
             }
         }
-        self.prev_pose = Some((pos, t));
     }
 
     /// The dynamic pressure of the gas itself: the probe reads the flow
