@@ -481,7 +481,7 @@ impl<
         let mut end_ahead = false;
         for p in self
             .tactile
-            .points()
+            .points_since(frame.time_s)
             .filter(|p| p.touched && p.time_s == frame.time_s)
         {
             if let Some(slot) = w.wall_points_m.get_mut(n) {

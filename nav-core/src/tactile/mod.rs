@@ -279,6 +279,33 @@ impl<const W: usize> TactileMap<W> {
             .take(self.len)
     }
 
+    /// Storage slots of the stored entries, oldest first (the order of
+    /// [`Self::points`]).
+    pub(crate) fn slots(&self) -> impl Iterator<Item = usize> + use<W> {
+        let w = W.max(1);
+        let start = (self.next + W - self.len) % w;
+        (0..self.len).map(move |k| (start + k) % w)
+    }
+
+    /// The stored entries whose time is at least `time_s`, oldest first:
+    /// a suffix of [`Self::points`], since entries are stored in time
+    /// order ([`Self::ingest`] refuses a frame older than the last one).
+    /// Found from the newest end, so it costs the suffix, not the map.
+    pub fn points_since(&self, time_s: f64) -> impl Iterator<Item = &WallPoint> {
+        let w = W.max(1);
+        let newest = self.next + W;
+        let newer = (1..=self.len)
+            .take_while(|k| {
+                self.points
+                    .get((newest - k) % w)
+                    .is_some_and(|p| p.time_s >= time_s)
+            })
+            .count();
+        self.slots()
+            .skip(self.len - newer)
+            .filter_map(|i| self.points.get(i))
+    }
+
     /// Forget everything (configuration kept).
     pub fn clear(&mut self) {
         self.next = 0;
