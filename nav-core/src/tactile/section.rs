@@ -413,33 +413,14 @@ impl<const W: usize> TactileMap<W> {
     pub fn section_at(&self, station: &Station, settings: &SectionSettings) -> SectionEstimate {
         let t = station.tangent_map.into_inner();
         let hw = settings.half_window_m;
-        // The touched points usable here, oldest first: both passes look
-        // only at these (the same points, in the same order, as a test of
-        // every stored point in each pass).
-        let mut slots = [0usize; W];
-        let mut used = 0usize;
-        for i in self.slots() {
-            if let Some(p) = self.points.get(i)
-                && p.touched
-                && self.usable(p, station, settings)
-                && let Some(slot) = slots.get_mut(used)
-            {
-                *slot = i;
-                used += 1;
-            }
-        }
-        let candidates = || {
-            slots
-                .get(..used)
-                .unwrap_or(&[])
-                .iter()
-                .filter_map(|&i| self.points.get(i))
-        };
         // Pass 1: normals of the points in the tangent-based window.
         let mut s = Matrix3::zeros();
         let mut count = 0usize;
-        for p in candidates() {
-            if libm::fabs((p.point_map_m - station.point_map_m).dot(&t)) <= hw {
+        for p in self.points() {
+            if p.touched
+                && libm::fabs((p.point_map_m - station.point_map_m).dot(&t)) <= hw
+                && self.usable(p, station, settings)
+            {
                 s += p.normal_map * p.normal_map.transpose();
                 count += 1;
             }
@@ -450,9 +431,11 @@ impl<const W: usize> TactileMap<W> {
         let mut buf = [[0.0f64; 2]; W];
         let mut n = 0usize;
         let mut var_sum = 0.0;
-        for p in candidates() {
+        for p in self.points() {
             let d = p.point_map_m - station.point_map_m;
-            if libm::fabs(d.dot(&axis)) <= hw
+            if p.touched
+                && libm::fabs(d.dot(&axis)) <= hw
+                && self.usable(p, station, settings)
                 && let Some(slot) = buf.get_mut(n)
             {
                 *slot = [d.dot(&left), d.dot(&up)];
