@@ -279,7 +279,7 @@ impl<const W: usize> TactileMap<W> {
 
     /// The stored entries as two slices, oldest first: the ring from the
     /// oldest entry to the end of storage, then the wrapped part.
-    fn ordered(&self) -> (&[WallPoint], &[WallPoint]) {
+    pub(crate) fn ordered(&self) -> (&[WallPoint], &[WallPoint]) {
         let start = (self.next + W - self.len) % W.max(1);
         let first = self.len.min(W - start);
         let older = self.points.get(start..start + first).unwrap_or(&[]);

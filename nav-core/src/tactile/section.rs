@@ -413,16 +413,40 @@ impl<const W: usize> TactileMap<W> {
     pub fn section_at(&self, station: &Station, settings: &SectionSettings) -> SectionEstimate {
         let t = station.tangent_map.into_inner();
         let hw = settings.half_window_m;
+        // The axis ends within `max_axis_correction_rad` of the tangent
+        // (blend_axis), so `|d . axis| >= |d . t| - |d| |axis - t|`: pass 1
+        // also keeps every touched point that might lie in the axis-based
+        // window (a superset, with slack for rounding) for pass 2 to test
+        // exactly, oldest first like the points themselves.
+        let half = 0.5
+            * settings
+                .max_axis_correction_rad
+                .clamp(0.0, core::f64::consts::PI);
+        let reach = 2.0 * libm::sin(half) + 1e-6;
+        let reach2 = reach * reach;
+        let mut maybe = [0usize; W];
+        let mut maybe_count = 0usize;
         // Pass 1: normals of the points in the tangent-based window.
         let mut s = Matrix3::zeros();
         let mut count = 0usize;
-        for p in self.points() {
-            if p.touched
-                && libm::fabs((p.point_map_m - station.point_map_m).dot(&t)) <= hw
-                && self.usable(p, station, settings)
-            {
+        let (older, newer) = self.ordered();
+        let first = older.len();
+        for (i, p) in older.iter().chain(newer.iter()).enumerate() {
+            if !p.touched {
+                continue;
+            }
+            let d = p.point_map_m - station.point_map_m;
+            let along = libm::fabs(d.dot(&t));
+            if along <= hw && self.usable(p, station, settings) {
                 s += p.normal_map * p.normal_map.transpose();
                 count += 1;
+            }
+            let excess = along - hw;
+            if (excess <= 0.0 || excess * excess <= d.norm_squared() * reach2 + 1e-24)
+                && let Some(slot) = maybe.get_mut(maybe_count)
+            {
+                *slot = i;
+                maybe_count += 1;
             }
         }
         let (axis, axis_source) = blend_axis(&s, count, &t, settings);
@@ -431,7 +455,18 @@ impl<const W: usize> TactileMap<W> {
         let mut buf = [[0.0f64; 2]; W];
         let mut n = 0usize;
         let mut var_sum = 0.0;
-        for p in self.points() {
+        let pass2 = maybe
+            .get(..maybe_count)
+            .unwrap_or(&[])
+            .iter()
+            .filter_map(|&i| {
+                if i < first {
+                    older.get(i)
+                } else {
+                    newer.get(i - first)
+                }
+            });
+        for p in pass2 {
             let d = p.point_map_m - station.point_map_m;
             if p.touched
                 && libm::fabs(d.dot(&axis)) <= hw
