@@ -500,7 +500,7 @@ impl<const W: usize> TactileMap<W> {
 const EIGEN_MAX_ITERATIONS: usize = 64;
 
 /// Axis from the tangent and the normal scatter (module docs).
-fn blend_axis(
+pub(super) fn blend_axis(
     s: &Matrix3<f64>,
     count: usize,
     t: &Vector3<f64>,
