@@ -431,9 +431,9 @@ impl<const W: usize> TactileMap<W> {
         let mut count = 0usize;
         let (older, newer) = self.ordered();
         let first = older.len();
-        for (i, p) in older.iter().chain(newer.iter()).enumerate() {
+        let mut visit = |i: usize, p: &super::WallPoint| {
             if !p.touched {
-                continue;
+                return;
             }
             let d = p.point_map_m - station.point_map_m;
             let along = libm::fabs(d.dot(&t));
@@ -448,11 +448,25 @@ impl<const W: usize> TactileMap<W> {
                 *slot = i;
                 maybe_count += 1;
             }
+        };
+        for (i, p) in older.iter().enumerate() {
+            visit(i, p);
+        }
+        for (i, p) in newer.iter().enumerate() {
+            visit(first + i, p);
         }
         let (axis, axis_source) = blend_axis(&s, count, &t, settings);
         let (left, up) = plane_basis(&axis);
-        // Pass 2: project the points in the axis-based window.
-        let mut buf = [[0.0f64; 2]; W];
+        // Pass 2: project the points in the axis-based window, into a
+        // small buffer when the candidates fit in it.
+        let mut small = [[0.0f64; 2]; SMALL_SECTION_POINTS];
+        let mut large;
+        let buf: &mut [[f64; 2]] = if maybe_count <= SMALL_SECTION_POINTS {
+            &mut small
+        } else {
+            large = [[0.0f64; 2]; W];
+            &mut large
+        };
         let mut n = 0usize;
         let mut var_sum = 0.0;
         let pass2 = maybe
@@ -495,6 +509,10 @@ impl<const W: usize> TactileMap<W> {
         }
     }
 }
+
+/// Pass-2 candidates up to this many are projected into a stack buffer of
+/// this size rather than one of the map's capacity.
+const SMALL_SECTION_POINTS: usize = 64;
 
 /// Cap on the symmetric eigen-solver sweeps for the normal scatter.
 const EIGEN_MAX_ITERATIONS: usize = 64;
