@@ -497,15 +497,17 @@ impl<
         }
         w.wall_point_count = u8::try_from(n.min(MAX_FRAME_WALL_POINTS)).unwrap_or(u8::MAX);
         w.end_ahead = end_ahead;
-        // Keep the geometry for the steps between fits; per-frame fields
-        // are cleared.
-        self.wall_template = WallObservation {
-            wall_points_m: [[0.0; 3]; MAX_FRAME_WALL_POINTS],
-            wall_point_count: 0,
-            end_ahead: false,
-            throat: w.throat,
-            ..w
-        };
+        // Keep the geometry for the steps between fits: the template's
+        // per-frame fields (wall points, their count, end ahead) stay
+        // cleared, the rest follows this step.
+        let t = &mut self.wall_template;
+        t.section = w.section;
+        t.conduit_axis_map = w.conduit_axis_map;
+        t.throat = w.throat;
+        t.openings = w.openings;
+        t.opening_count = w.opening_count;
+        t.contact_suspect_mask = w.contact_suspect_mask;
+        t.contact_failed_mask = w.contact_failed_mask;
         Some(w)
     }
 
