@@ -424,6 +424,15 @@ impl<const W: usize> TactileMap<W> {
                 .clamp(0.0, core::f64::consts::PI);
         let reach = 2.0 * libm::sin(half) + 1e-6;
         let reach2 = reach * reach;
+        // A usable point is within `max_distance_m` of the station's axis
+        // line, so `|d| <= |d . t| + r_max`, and a pass-2 point also has
+        // `|d . t| (1 - reach) <= hw + reach r_max`: a cheap first test.
+        let r_max = libm::fabs(settings.max_distance_m);
+        let along_max = if reach < 1.0 {
+            ((hw + reach * r_max) / (1.0 - reach)) * (1.0 + 1e-9) + 1e-12
+        } else {
+            f64::INFINITY
+        };
         let mut maybe = [0usize; W];
         let mut maybe_count = 0usize;
         // Pass 1: normals of the points in the tangent-based window.
@@ -431,30 +440,29 @@ impl<const W: usize> TactileMap<W> {
         let mut count = 0usize;
         let (older, newer) = self.ordered();
         let first = older.len();
-        let mut visit = |i: usize, p: &super::WallPoint| {
-            if !p.touched {
-                return;
-            }
-            let d = p.point_map_m - station.point_map_m;
-            let along = libm::fabs(d.dot(&t));
-            if along <= hw && self.usable(p, station, settings) {
-                s += p.normal_map * p.normal_map.transpose();
-                count += 1;
-            }
-            let excess = along - hw;
-            if (excess <= 0.0 || excess * excess <= d.norm_squared() * reach2 + 1e-24)
-                && let Some(slot) = maybe.get_mut(maybe_count)
-            {
-                *slot = i;
-                maybe_count += 1;
-            }
-        };
-        for (i, p) in older.iter().enumerate() {
-            visit(i, p);
-        }
-        for (i, p) in newer.iter().enumerate() {
-            visit(first + i, p);
-        }
+        older
+            .iter()
+            .enumerate()
+            .chain(newer.iter().enumerate().map(|(i, p)| (first + i, p)))
+            .for_each(|(i, p)| {
+                if !p.touched {
+                    return;
+                }
+                let d = p.point_map_m - station.point_map_m;
+                let along = libm::fabs(d.dot(&t));
+                if along <= hw && self.usable(p, station, settings) {
+                    s += p.normal_map * p.normal_map.transpose();
+                    count += 1;
+                }
+                let excess = along - hw;
+                if along <= along_max
+                    && (excess <= 0.0 || excess * excess <= d.norm_squared() * reach2 + 1e-24)
+                    && let Some(slot) = maybe.get_mut(maybe_count)
+                {
+                    *slot = i;
+                    maybe_count += 1;
+                }
+            });
         let (axis, axis_source) = blend_axis(&s, count, &t, settings);
         let (left, up) = plane_basis(&axis);
         // Pass 2: project the points in the axis-based window, into a

@@ -698,10 +698,18 @@ fn section_at_keeps_the_points_of_two_full_passes() {
     let mut fitted = 0;
     for &x in &[0.9f64, 1.33, 1.5, 1.71, 1.95] {
         for &tilt in &[0.0f64, 0.05, 0.2, 0.34, 0.6] {
-            for &(hw, correction) in &[(0.03f64, 0.35f64), (0.1, 0.35), (0.3, 0.35), (0.1, 1.2)] {
+            for &(hw, correction, reach) in &[
+                (0.03f64, 0.35f64, 3.0f64),
+                (0.1, 0.35, 3.0),
+                (0.3, 0.35, 3.0),
+                (0.1, 1.2, 3.0),
+                (0.1, 0.35, 0.45),
+                (0.2, 0.6, 0.41),
+            ] {
                 let settings = SectionSettings {
                     half_window_m: hw,
                     max_axis_correction_rad: correction,
+                    max_distance_m: reach,
                     ..SectionSettings::default()
                 };
                 let mut st = station(x);
