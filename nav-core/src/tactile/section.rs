@@ -440,31 +440,29 @@ impl<const W: usize> TactileMap<W> {
         let mut count = 0usize;
         let (older, newer) = self.ordered();
         let first = older.len();
-        // A plain loop, so the body is inlined (a closure over the two
-        // slices was not).
-        let all = older
+        older
             .iter()
             .enumerate()
-            .chain(newer.iter().enumerate().map(|(i, p)| (first + i, p)));
-        for (i, p) in all {
-            if !p.touched {
-                continue;
-            }
-            let d = p.point_map_m - station.point_map_m;
-            let along = libm::fabs(d.dot(&t));
-            if along <= hw && self.usable(p, station, settings) {
-                s += p.normal_map * p.normal_map.transpose();
-                count += 1;
-            }
-            let excess = along - hw;
-            if along <= along_max
-                && (excess <= 0.0 || excess * excess <= d.norm_squared() * reach2 + 1e-24)
-                && let Some(slot) = maybe.get_mut(maybe_count)
-            {
-                *slot = i;
-                maybe_count += 1;
-            }
-        }
+            .chain(newer.iter().enumerate().map(|(i, p)| (first + i, p)))
+            .for_each(|(i, p)| {
+                if !p.touched {
+                    return;
+                }
+                let d = p.point_map_m - station.point_map_m;
+                let along = libm::fabs(d.dot(&t));
+                if along <= hw && self.usable(p, station, settings) {
+                    s += p.normal_map * p.normal_map.transpose();
+                    count += 1;
+                }
+                let excess = along - hw;
+                if along <= along_max
+                    && (excess <= 0.0 || excess * excess <= d.norm_squared() * reach2 + 1e-24)
+                    && let Some(slot) = maybe.get_mut(maybe_count)
+                {
+                    *slot = i;
+                    maybe_count += 1;
+                }
+            });
         let (axis, axis_source) = blend_axis(&s, count, &t, settings);
         let (left, up) = plane_basis(&axis);
         // Pass 2: project the points in the axis-based window, into a
