@@ -323,13 +323,14 @@ impl<
             }
             _ => None,
         };
-        let wall = self.wall_observation(frame, pose.as_ref());
-        let obs = crate::navigator::Observation {
+        let mut obs = crate::navigator::Observation {
             time_s: frame.time_s,
             pose: frame.pose,
             flow,
-            wall,
+            wall: None,
         };
+        // Built in place: the observation is about a kilobyte.
+        self.wall_observation(frame, pose.as_ref(), &mut obs.wall);
         self.nav.step(&obs)
     }
 
@@ -425,24 +426,31 @@ impl<
         self.body.module_poses(pose, joints).ok()
     }
 
+    /// This step's wall observation into `out` (left `None` when there is
+    /// none).
     fn wall_observation(
         &mut self,
         frame: &SensorFrame<P, J, C>,
         pose: Option<&HeadPose>,
-    ) -> Option<WallObservation> {
+        out: &mut Option<WallObservation>,
+    ) {
+        *out = None;
         if frame.contact_count > 0 {
             if self.tactile.ingest(frame, &self.body).is_err() {
                 self.counters.tactile_errors = self.counters.tactile_errors.saturating_add(1);
-                return None;
+                return;
             }
         } else if self.section.is_none() {
             // Nothing felt yet: the skin is quiet, which is itself a report
             // (no wall within reach), with no geometry.
-            return Some(WallObservation::EMPTY);
+            *out = Some(WallObservation::EMPTY);
+            return;
         }
-        let pose = pose?;
+        let Some(pose) = pose else {
+            return;
+        };
         let step = self.counters.steps;
-        let mut w = self.wall_template;
+        let w = out.insert(self.wall_template);
         if step.is_multiple_of(u64::from(self.config.throat_every)) {
             self.throat_due = true;
         }
@@ -450,7 +458,10 @@ impl<
             step.is_multiple_of(u64::from(self.config.section_every)) || self.section.is_none();
         if section_step {
             // Module poses are needed only on the steps that fit something.
-            let poses = self.poses(pose)?;
+            let Some(poses) = self.poses(pose) else {
+                *out = None;
+                return;
+            };
             if let Some(station) = self.body.station(&poses, self.head_arc_m) {
                 let est = self.tactile.section_at(&station, &self.config.section);
                 self.counters.section_fits = self.counters.section_fits.saturating_add(1);
@@ -485,7 +496,10 @@ impl<
             // The first step without a section fit after the throat period
             // came round: the two fits never share a step.
             self.throat_due = false;
-            let poses = self.poses(pose)?;
+            let Some(poses) = self.poses(pose) else {
+                *out = None;
+                return;
+            };
             w.throat = self.throat_now(&poses);
         }
         // This frame's touched wall points, and whether one lies across
@@ -495,7 +509,7 @@ impl<
         let mut end_ahead = false;
         for p in self
             .tactile
-            .points()
+            .points_since(frame.time_s)
             .filter(|p| p.touched && p.time_s == frame.time_s)
         {
             if let Some(slot) = w.wall_points_m.get_mut(n) {
@@ -511,16 +525,17 @@ impl<
         }
         w.wall_point_count = u8::try_from(n.min(MAX_FRAME_WALL_POINTS)).unwrap_or(u8::MAX);
         w.end_ahead = end_ahead;
-        // Keep the geometry for the steps between fits; per-frame fields
-        // are cleared.
-        self.wall_template = WallObservation {
-            wall_points_m: [[0.0; 3]; MAX_FRAME_WALL_POINTS],
-            wall_point_count: 0,
-            end_ahead: false,
-            throat: w.throat,
-            ..w
-        };
-        Some(w)
+        // Keep the geometry for the steps between fits: the template's
+        // per-frame fields (wall points, their count, end ahead) stay
+        // cleared, the rest follows this step.
+        let t = &mut self.wall_template;
+        t.section = w.section;
+        t.conduit_axis_map = w.conduit_axis_map;
+        t.throat = w.throat;
+        t.openings = w.openings;
+        t.opening_count = w.opening_count;
+        t.contact_suspect_mask = w.contact_suspect_mask;
+        t.contact_failed_mask = w.contact_failed_mask;
     }
 
     fn throat_now(&self, poses: &ModulePoses<M>) -> Option<Throat> {

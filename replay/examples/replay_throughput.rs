@@ -13,7 +13,13 @@
 //!    figure counts it, decoding plus navigator, every command fed to a
 //!    digest. Both are timed; the last line is the second.
 //!
-//! `cargo run --release -p replay --example replay_throughput [-- <frames>]`
+//! `cargo run --release -p replay --example replay_throughput [-- <frames> [<log>]]`
+//!
+//! With a `<log>` path the log is kept there (and reused, without
+//! generating, when the file already exists), and the traced replay is
+//! skipped: that is the form for counting instructions, with callgrind
+//! collecting only the never-inlined `replay_throughput::decode_and_navigate`
+//! (see `DEVELOPERS.md`).
 //!
 //! Peak RSS (`VmHWM` from `/proc/self/status`) is printed after generation
 //! and after the replay; both phases stream, so neither grows with the log.
@@ -21,25 +27,63 @@
 //! `replay_throughput frames=<n> seconds=<s> frames_per_s=<x> realtime_factor=<y> peak_rss_mb=<z>`
 
 use std::io::{BufReader, BufWriter, Write};
+use std::path::Path;
 
 use replay::log::{LogReader, LogWriter, ReadOptions, Record};
 use replay::run::peak_rss_mb;
 use replay::run::{AnyNavigator, header_for, run_log};
 use replay::sim::{MotionCommand, Oracle};
 
-fn main() -> Result<(), Box<dyn std::error::Error>> {
+type Res<T> = Result<T, Box<dyn std::error::Error>>;
+
+const DEMO: &str = "demo:hollow-kettle";
+
+fn main() -> Res<()> {
     let frames: u64 = std::env::args()
         .nth(1)
         .and_then(|a| a.parse().ok())
         .unwrap_or(2_016_000);
-    let demo = "demo:hollow-kettle";
-    let path = std::env::temp_dir().join(format!("replay_throughput_{}.upl", std::process::id()));
+    let kept = std::env::args().nth(2).map(std::path::PathBuf::from);
+    let path = kept.clone().unwrap_or_else(|| {
+        std::env::temp_dir().join(format!("replay_throughput_{}.upl", std::process::id()))
+    });
+    let dt = if kept.is_some() && path.exists() {
+        println!("reusing {}", path.display());
+        replay::run::build_sim(DEMO, None)?.time_step_s()
+    } else {
+        generate(frames, &path)?
+    };
+    if kept.is_none() {
+        traced_replay(&path)?;
+    }
 
+    // Replay as the issue counts it: decoding plus navigator (every command
+    // still digested, so nothing is optimised away).
+    let t0 = std::time::Instant::now();
+    let (n, digest) = decode_and_navigate(&path)?;
+    let seconds = t0.elapsed().as_secs_f64();
+    let rss = peak_rss_mb();
+    if kept.is_none() {
+        std::fs::remove_file(&path)?;
+    }
+    println!("replayed {n} frames, decode + navigator: command digest {digest:016x}");
+    println!("peak_rss_mb after replay {rss:.1}");
+    let fps = n as f64 / seconds;
+    println!(
+        "replay_throughput frames={n} seconds={seconds:.2} frames_per_s={fps:.0} realtime_factor={:.0} peak_rss_mb={rss:.1}",
+        fps * dt
+    );
+    Ok(())
+}
+
+/// Write the log; returns the time step.
+fn generate(frames: u64, path: &Path) -> Res<f64> {
+    let demo = DEMO;
     // Generation: streamed to disk.
     let mut sim = replay::run::build_sim(demo, None)?;
     let dt = sim.time_step_s();
     let header = header_for(&sim, demo);
-    let file = std::fs::File::create(&path)?;
+    let file = std::fs::File::create(path)?;
     let mut log = LogWriter::new(BufWriter::with_capacity(1 << 16, file), &header)?;
     let mut nav = AnyNavigator::new(sim.robot_spec(), &sim.gas_spec())?;
     let mut oracle: Option<Oracle> = None;
@@ -74,7 +118,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     out.flush()?;
     drop(out);
     let gen_s = t_gen.elapsed().as_secs_f64();
-    let bytes = std::fs::metadata(&path)?.len();
+    let bytes = std::fs::metadata(path)?.len();
     println!(
         "generated {frames} frames ({:.2} h at {:.0} Hz, {nav_frames} with the navigator in the loop) in {gen_s:.1} s",
         frames as f64 * dt / 3600.0,
@@ -86,10 +130,14 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         bytes as f64 / frames as f64
     );
     println!("peak_rss_mb after generation {:.1}", peak_rss_mb());
+    Ok(dt)
+}
 
-    // Replay with the trace written (JSON Lines to a sink): what `replay
-    // run` does.
-    let file = std::fs::File::open(&path)?;
+/// Replay with the trace written (JSON Lines to a sink): what `replay run`
+/// does.
+fn traced_replay(path: &Path) -> Res<()> {
+    let demo = DEMO;
+    let file = std::fs::File::open(path)?;
     let t0 = std::time::Instant::now();
     let summary = run_log(
         demo,
@@ -106,11 +154,15 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         summary.trace.trace_digest,
         summary.trace.reasons
     );
+    Ok(())
+}
 
-    // Replay as the issue counts it: decoding plus navigator (every command
-    // still digested, so nothing is optimised away).
-    let file = std::fs::File::open(&path)?;
-    let t0 = std::time::Instant::now();
+/// Decoding plus navigator, every command fed to a digest; returns the
+/// frames replayed and the digest. Never inlined, so callgrind can collect
+/// this call alone.
+#[inline(never)]
+fn decode_and_navigate(path: &Path) -> Res<(u64, u64)> {
+    let file = std::fs::File::open(path)?;
     let mut reader = LogReader::open(
         BufReader::with_capacity(1 << 16, file),
         ReadOptions::default(),
@@ -126,18 +178,5 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             n += 1;
         }
     }
-    let seconds = t0.elapsed().as_secs_f64();
-    let rss = peak_rss_mb();
-    std::fs::remove_file(&path)?;
-    println!(
-        "replayed {n} frames, decode + navigator: command digest {:016x}",
-        digest.finish()
-    );
-    println!("peak_rss_mb after replay {rss:.1}");
-    let fps = n as f64 / seconds;
-    println!(
-        "replay_throughput frames={n} seconds={seconds:.2} frames_per_s={fps:.0} realtime_factor={:.0} peak_rss_mb={rss:.1}",
-        fps * dt
-    );
-    Ok(())
+    Ok((n, digest.finish()))
 }

@@ -219,9 +219,17 @@ impl AnyNavigator {
     /// # Errors
     /// A message when the frame does not fit the navigator's capacities.
     pub fn step(&mut self, f: &FrameRecord) -> Result<Command, String> {
+        // The frame is used where it was built, inside the `Result` (moving
+        // it out would copy some kilobytes a step).
         match self {
-            Self::Five(n) => Ok(n.step(&f.to_sensor_frame().map_err(|e| e.to_string())?)),
-            Self::Seven(n) => Ok(n.step(&f.to_sensor_frame().map_err(|e| e.to_string())?)),
+            Self::Five(n) => match &f.to_sensor_frame() {
+                Ok(frame) => Ok(n.step(frame)),
+                Err(e) => Err(e.to_string()),
+            },
+            Self::Seven(n) => match &f.to_sensor_frame() {
+                Ok(frame) => Ok(n.step(frame)),
+                Err(e) => Err(e.to_string()),
+            },
         }
     }
 

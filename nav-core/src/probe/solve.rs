@@ -1018,7 +1018,13 @@ impl<const N: usize> ProbeSolver<N> {
         a: f64,
     ) -> Lin {
         let (e1, e2) = tangent_basis(d);
-        let mut h = Matrix4::zeros();
+        // J^T W J, lower triangle: entry (i, k) sums (w j_k) j_i over the
+        // ports, the products `Matrix::ger` forms. The upper triangle is
+        // mirrored: only the lower one is ever read (Chol4, the diagonal),
+        // and (2, 3) equals (3, 2) exactly since j_2 = 1.
+        let (mut h00, mut h10, mut h20, mut h30) = (0.0, 0.0, 0.0, 0.0);
+        let (mut h11, mut h21, mut h31) = (0.0, 0.0, 0.0);
+        let (mut h22, mut h32, mut h33) = (0.0, 0.0, 0.0);
         let mut b = Vector4::zeros();
         let mut chi2 = 0.0;
         let mut rounding = 0.0;
@@ -1036,12 +1042,29 @@ impl<const N: usize> ProbeSolver<N> {
             let (s, ds) = shape.eval(n.dot(d));
             let r = yi - ps - a * s;
             let g = a * ds;
-            let j = Vector4::new(g * n.dot(&e1), g * n.dot(&e2), 1.0, s);
-            h.ger(wi, &j, &j, 1.0);
-            b.axpy(wi * r, &j, 1.0);
+            let (j0, j1, j2, j3) = (g * n.dot(&e1), g * n.dot(&e2), 1.0, s);
+            let (w0, w1, w2k, w3) = (wi * j0, wi * j1, wi * j2, wi * j3);
+            h00 += w0 * j0;
+            h10 += w0 * j1;
+            h20 += w0 * j2;
+            h30 += w0 * j3;
+            h11 += w1 * j1;
+            h21 += w1 * j2;
+            h31 += w1 * j3;
+            h22 += w2k * j2;
+            h32 += w2k * j3;
+            h33 += w3 * j3;
+            b.axpy(wi * r, &Vector4::new(j0, j1, j2, j3), 1.0);
             chi2 += wi * r * r;
             rounding += wi * libm::fabs(r) * (libm::fabs(yi) + libm::fabs(ps) + libm::fabs(a * s));
         }
+        #[rustfmt::skip]
+        let h = Matrix4::new(
+            h00, h10, h20, h30,
+            h10, h11, h21, h31,
+            h20, h21, h22, h32,
+            h30, h31, h32, h33,
+        );
         Lin {
             chi2,
             rounding: ROUNDING_ULPS * f64::EPSILON * rounding,
@@ -1258,7 +1281,8 @@ impl<const N: usize> ProbeSolver<N> {
         }
         let ratio = 1.0 + a / ps;
 
-        // Regime label.
+        // Regime label (and the isentropic Mach it rests on, reused below).
+        let mut isentropic_mach = None;
         let regime = match (regime_kind, self.config.regime) {
             (Some(r), _) => r,
             (
@@ -1269,7 +1293,9 @@ impl<const N: usize> ProbeSolver<N> {
                 },
             ) => {
                 let m = if ratio > 1.0 {
-                    gas.mach_from_p0_over_p(ratio)?
+                    let m = gas.mach_from_p0_over_p(ratio)?;
+                    isentropic_mach = Some(m);
+                    m
                 } else {
                     0.0
                 };
@@ -1299,7 +1325,15 @@ impl<const N: usize> ProbeSolver<N> {
             }
             Regime::CompressibleSubsonic | Regime::Supersonic => {
                 if ratio > 1.0 {
-                    let m = gas.mach_from_pitot_over_static(ratio)?;
+                    // Up to the sonic ratio `mach_from_pitot_over_static` is
+                    // `mach_from_p0_over_p` (it compares with the same
+                    // `p0_over_p(1.0)` as `sonic_ratio`): skip its two
+                    // power evaluations when the label already did it.
+                    let m = match isentropic_mach {
+                        Some(m) if ratio <= self.sonic_ratio => m,
+                        _ if ratio <= self.sonic_ratio => gas.mach_from_p0_over_p(ratio)?,
+                        _ => gas.mach_from_pitot_over_static(ratio)?,
+                    };
                     let dm_dr = if regime == Regime::Supersonic && ratio >= self.sonic_ratio {
                         // d ln(p02/p1)/dM from NACA 1135 eq. 100.
                         let m2 = m * m;

@@ -270,13 +270,49 @@ impl<const W: usize> TactileMap<W> {
     }
 
     /// Stored entries, oldest first.
-    pub fn points(&self) -> impl Iterator<Item = &WallPoint> {
+    pub fn points(
+        &self,
+    ) -> core::iter::Chain<core::slice::Iter<'_, WallPoint>, core::slice::Iter<'_, WallPoint>> {
+        let (older, newer) = self.ordered();
+        older.iter().chain(newer.iter())
+    }
+
+    /// The stored entries as two slices, oldest first: the ring from the
+    /// oldest entry to the end of storage, then the wrapped part.
+    pub(crate) fn ordered(&self) -> (&[WallPoint], &[WallPoint]) {
         let start = (self.next + W - self.len) % W.max(1);
-        self.points
+        let first = self.len.min(W - start);
+        let older = self.points.get(start..start + first).unwrap_or(&[]);
+        let newer = self.points.get(..self.len - first).unwrap_or(&[]);
+        (older, newer)
+    }
+
+    /// The stored entries whose time is at least `time_s`, oldest first:
+    /// a suffix of [`Self::points`], since entries are stored in time
+    /// order ([`Self::ingest`] refuses a frame older than the last one).
+    /// Found from the newest end, so it costs the suffix, not the map.
+    pub fn points_since(
+        &self,
+        time_s: f64,
+    ) -> core::iter::Chain<core::slice::Iter<'_, WallPoint>, core::slice::Iter<'_, WallPoint>> {
+        let (older, newer) = self.ordered();
+        let in_newer = newer
             .iter()
-            .skip(start)
-            .chain(self.points.iter().take(start))
-            .take(self.len)
+            .rev()
+            .take_while(|p| p.time_s >= time_s)
+            .count();
+        let newer_len = newer.len();
+        if in_newer < newer_len {
+            let tail = newer.get(newer_len - in_newer..).unwrap_or(&[]);
+            return [].iter().chain(tail.iter());
+        }
+        let in_older = older
+            .iter()
+            .rev()
+            .take_while(|p| p.time_s >= time_s)
+            .count();
+        let tail = older.get(older.len() - in_older..).unwrap_or(&[]);
+        tail.iter().chain(newer.iter())
     }
 
     /// Forget everything (configuration kept).

@@ -428,25 +428,82 @@ impl<const W: usize> TactileMap<W> {
     pub fn section_at(&self, station: &Station, settings: &SectionSettings) -> SectionEstimate {
         let t = station.tangent_map.into_inner();
         let hw = settings.half_window_m;
+        // The axis ends within `max_axis_correction_rad` of the tangent
+        // (blend_axis), so `|d . axis| >= |d . t| - |d| |axis - t|`: pass 1
+        // also keeps every touched point that might lie in the axis-based
+        // window (a superset, with slack for rounding) for pass 2 to test
+        // exactly, oldest first like the points themselves.
+        let half = 0.5
+            * settings
+                .max_axis_correction_rad
+                .clamp(0.0, core::f64::consts::PI);
+        let reach = 2.0 * libm::sin(half) + 1e-6;
+        let reach2 = reach * reach;
+        // A usable point is within `max_distance_m` of the station's axis
+        // line, so `|d| <= |d . t| + r_max`, and a pass-2 point also has
+        // `|d . t| (1 - reach) <= hw + reach r_max`: a cheap first test.
+        let r_max = libm::fabs(settings.max_distance_m);
+        let along_max = if reach < 1.0 {
+            ((hw + reach * r_max) / (1.0 - reach)) * (1.0 + 1e-9) + 1e-12
+        } else {
+            f64::INFINITY
+        };
+        let mut maybe = [0usize; W];
+        let mut maybe_count = 0usize;
         // Pass 1: normals of the points in the tangent-based window.
         let mut s = Matrix3::zeros();
         let mut count = 0usize;
-        for p in self.points() {
-            if p.touched
-                && libm::fabs((p.point_map_m - station.point_map_m).dot(&t)) <= hw
-                && self.usable(p, station, settings)
-            {
-                s += p.normal_map * p.normal_map.transpose();
-                count += 1;
-            }
-        }
+        let (older, newer) = self.ordered();
+        let first = older.len();
+        older
+            .iter()
+            .enumerate()
+            .chain(newer.iter().enumerate().map(|(i, p)| (first + i, p)))
+            .for_each(|(i, p)| {
+                if !p.touched {
+                    return;
+                }
+                let d = p.point_map_m - station.point_map_m;
+                let along = libm::fabs(d.dot(&t));
+                if along <= hw && self.usable(p, station, settings) {
+                    s += p.normal_map * p.normal_map.transpose();
+                    count += 1;
+                }
+                let excess = along - hw;
+                if along <= along_max
+                    && (excess <= 0.0 || excess * excess <= d.norm_squared() * reach2 + 1e-24)
+                    && let Some(slot) = maybe.get_mut(maybe_count)
+                {
+                    *slot = i;
+                    maybe_count += 1;
+                }
+            });
         let (axis, axis_source) = blend_axis(&s, count, &t, settings);
         let (left, up) = plane_basis(&axis);
-        // Pass 2: project the points in the axis-based window.
-        let mut buf = [[0.0f64; 2]; W];
+        // Pass 2: project the points in the axis-based window, into a
+        // small buffer when the candidates fit in it.
+        let mut small = [[0.0f64; 2]; SMALL_SECTION_POINTS];
+        let mut large;
+        let buf: &mut [[f64; 2]] = if maybe_count <= SMALL_SECTION_POINTS {
+            &mut small
+        } else {
+            large = [[0.0f64; 2]; W];
+            &mut large
+        };
         let mut n = 0usize;
         let mut var_sum = 0.0;
-        for p in self.points() {
+        let pass2 = maybe
+            .get(..maybe_count)
+            .unwrap_or(&[])
+            .iter()
+            .filter_map(|&i| {
+                if i < first {
+                    older.get(i)
+                } else {
+                    newer.get(i - first)
+                }
+            });
+        for p in pass2 {
             let d = p.point_map_m - station.point_map_m;
             if p.touched
                 && libm::fabs(d.dot(&axis)) <= hw
@@ -476,11 +533,15 @@ impl<const W: usize> TactileMap<W> {
     }
 }
 
+/// Pass-2 candidates up to this many are projected into a stack buffer of
+/// this size rather than one of the map's capacity.
+const SMALL_SECTION_POINTS: usize = 64;
+
 /// Cap on the symmetric eigen-solver sweeps for the normal scatter.
 const EIGEN_MAX_ITERATIONS: usize = 64;
 
 /// Axis from the tangent and the normal scatter (module docs).
-fn blend_axis(
+pub(super) fn blend_axis(
     s: &Matrix3<f64>,
     count: usize,
     t: &Vector3<f64>,

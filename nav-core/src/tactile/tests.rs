@@ -630,3 +630,133 @@ fn a_circle_narrower_than_the_body_is_only_a_lower_bound() {
     assert_eq!(reason, LowerBoundReason::BelowBody);
     assert!(min_radius_m >= 0.054, "{min_radius_m}");
 }
+
+/// `points_since` is exactly the suffix of `points()` from a time on, also
+/// after the ring has wrapped and with several points per frame.
+#[test]
+fn points_since_is_the_suffix_from_a_time() {
+    let b = body();
+    let mut map = TactileMap::<8>::new(TactileConfig::default()).unwrap();
+    for i in 0..7u32 {
+        let t = f64::from(i);
+        let mut f = frame_touching(t, t, 0.0, 0.4);
+        // Two contacts in some frames: equal times inside the ring.
+        if i % 2 == 1 {
+            f.push_contact(contact(0, 4, 2.0));
+        }
+        map.ingest(&f, &b).unwrap();
+        for k in 0..=i + 1 {
+            let since = f64::from(k) - 0.5;
+            let want: Vec<WallPoint> = map
+                .points()
+                .filter(|p| p.time_s >= since)
+                .copied()
+                .collect();
+            let got: Vec<WallPoint> = map.points_since(since).copied().collect();
+            assert_eq!(got, want, "after frame {i}, since {since}");
+        }
+        let at: Vec<f64> = map.points_since(t).map(|p| p.time_s).collect();
+        assert_eq!(at.len(), if i % 2 == 1 { 2 } else { 1 });
+        assert!(at.iter().all(|&x| x == t));
+    }
+    assert_eq!(map.points_since(f64::INFINITY).count(), 0);
+    assert_eq!(map.points_since(f64::NAN).count(), 0);
+    assert_eq!(map.points_since(f64::NEG_INFINITY).count(), map.len());
+}
+
+/// `section_at` as two full passes over every stored point (the plain
+/// form of the module docs), to check that the map's pass-2 shortcut
+/// keeps exactly the same points.
+fn section_by_full_passes<const W: usize>(
+    map: &TactileMap<W>,
+    st: &Station,
+    settings: &SectionSettings,
+) -> SectionEstimate {
+    let t = st.tangent_map.into_inner();
+    let hw = settings.half_window_m;
+    let mut s = nalgebra::Matrix3::zeros();
+    let mut count = 0usize;
+    for p in map.points() {
+        if p.touched
+            && ((p.point_map_m - st.point_map_m).dot(&t)).abs() <= hw
+            && map.usable(p, st, settings)
+        {
+            s += p.normal_map * p.normal_map.transpose();
+            count += 1;
+        }
+    }
+    let (axis, axis_source) = super::section::blend_axis(&s, count, &t, settings);
+    let (left, up) = super::section::plane_basis(&axis);
+    let mut pts = Vec::new();
+    let mut var_sum = 0.0;
+    for p in map.points() {
+        let d = p.point_map_m - st.point_map_m;
+        if p.touched && d.dot(&axis).abs() <= hw && map.usable(p, st, settings) {
+            pts.push([d.dot(&left), d.dot(&up)]);
+            var_sum += p.sigma_m * p.sigma_m;
+        }
+    }
+    let n = pts.len();
+    SectionEstimate {
+        station: *st,
+        axis_map: Unit::new_unchecked(axis),
+        axis_source,
+        left_map: left,
+        up_map: up,
+        kinematic_sigma_m: if n > 0 {
+            (var_sum / f64::from(u32::try_from(n).unwrap())).sqrt()
+        } else {
+            0.0
+        },
+        plane: fit_plane_section(&pts, &settings.fit),
+    }
+}
+
+#[test]
+fn section_at_keeps_the_points_of_two_full_passes() {
+    let mut map = TactileMap::<256>::new(TactileConfig::default()).unwrap();
+    // 41 rings of 12 (the ring wraps), a radius that varies along the pipe.
+    let rings: Vec<f64> = (0..41).map(|i| 0.05 * f64::from(i)).collect();
+    fill_pipe(
+        &mut map,
+        &rings,
+        12,
+        |x| 0.4 + 0.02 * (7.0 * x).sin(),
+        |x, a| (x * 13.0 + a).sin() > 0.8,
+    );
+    let mut blended = 0;
+    let mut fitted = 0;
+    for &x in &[0.9f64, 1.33, 1.5, 1.71, 1.95] {
+        for &tilt in &[0.0f64, 0.05, 0.2, 0.34, 0.6] {
+            for &(hw, correction, reach) in &[
+                (0.03f64, 0.35f64, 3.0f64),
+                (0.1, 0.35, 3.0),
+                (0.3, 0.35, 3.0),
+                (0.1, 1.2, 3.0),
+                (0.1, 0.35, 0.45),
+                (0.2, 0.6, 0.41),
+            ] {
+                let settings = SectionSettings {
+                    half_window_m: hw,
+                    max_axis_correction_rad: correction,
+                    max_distance_m: reach,
+                    ..SectionSettings::default()
+                };
+                let mut st = station(x);
+                st.tangent_map = Unit::new_normalize(Vector3::new(
+                    tilt.cos(),
+                    0.6 * tilt.sin(),
+                    0.8 * tilt.sin(),
+                ));
+                let got = map.section_at(&st, &settings);
+                let want = section_by_full_passes(&map, &st, &settings);
+                assert_eq!(got, want, "x {x}, tilt {tilt}, window {hw}");
+                blended += usize::from(matches!(got.axis_source, AxisSource::Blended { .. }));
+                fitted += usize::from(matches!(got.plane.shape, SectionShape::Circle(_)));
+            }
+        }
+    }
+    // The cases exercise corrected axes and real fits, not only refusals.
+    assert!(blended > 20, "{blended} blended axes");
+    assert!(fitted > 20, "{fitted} circle fits");
+}

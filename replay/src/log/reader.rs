@@ -333,7 +333,7 @@ impl<R: Read> LogReader<R> {
             self.check_sequence(&head)?;
             let payload = &self.input.buf[payload_range];
             let decoded = match head.kind {
-                format::KIND_FRAME => codec::decode_payload(payload).map(Record::Frame),
+                format::KIND_FRAME => codec::decode_frame_payload(payload).map(Record::Frame),
                 format::KIND_EVENT => codec::decode_payload(payload).map(Record::Event),
                 format::KIND_END => codec::decode_payload(payload).map(Record::End),
                 kind => {

@@ -649,3 +649,95 @@ proptest! {
         prop_assert!(salvaged <= records.len() as u64 + 1);
     }
 }
+
+/// The direct frame decoder against the codec: whatever it takes, the
+/// codec decodes to the same bits; what the encoder writes, it takes.
+fn direct_agrees(payload: &[u8]) -> Result<(), TestCaseError> {
+    let generic = codec::decode_payload::<FrameRecord>(payload);
+    if let Some(direct) = codec::direct_frame(payload) {
+        let Ok(g) = &generic else {
+            return Err(TestCaseError::fail(format!(
+                "direct took what the codec refuses: {generic:?}"
+            )));
+        };
+        let a = payload_bytes(&Record::Frame(direct));
+        let b = payload_bytes(&Record::Frame(g.clone()));
+        prop_assert_eq!(a, b);
+    }
+    let fast = codec::decode_frame_payload(payload);
+    match (&fast, &generic) {
+        (Ok(a), Ok(b)) => prop_assert_eq!(
+            payload_bytes(&Record::Frame(a.clone())),
+            payload_bytes(&Record::Frame(b.clone()))
+        ),
+        (Err(a), Err(b)) => prop_assert_eq!(a, b),
+        _ => prop_assert!(false, "{fast:?} vs {generic:?}"),
+    }
+    Ok(())
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(300))]
+
+    #[test]
+    fn direct_frame_decoder_takes_every_encoded_frame(frame in arb_frame()) {
+        let payload = payload_bytes(&Record::Frame(frame.clone()));
+        let direct = codec::direct_frame(&payload);
+        prop_assert!(direct.is_some());
+        prop_assert_eq!(payload_bytes(&Record::Frame(direct.unwrap())), payload.clone());
+        direct_agrees(&payload)?;
+    }
+
+    #[test]
+    fn direct_frame_decoder_agrees_on_damaged_payloads(
+        frame in arb_frame(),
+        edits in proptest::collection::vec((any::<usize>(), any::<u8>(), 0..4u8), 1..4),
+    ) {
+        let mut payload = payload_bytes(&Record::Frame(frame));
+        for (at, v, op) in edits {
+            let at = at % payload.len().max(1);
+            match op {
+                0 if !payload.is_empty() => payload[at] ^= v.max(1),
+                1 => payload.insert(at.min(payload.len()), v),
+                2 if !payload.is_empty() => { payload.remove(at); }
+                _ => payload.truncate(at),
+            }
+        }
+        direct_agrees(&payload)?;
+    }
+}
+
+/// Long sequences (251 or more contacts: three-byte lengths) and module
+/// indices that need the two-byte form go the direct way; a length in a
+/// longer form than needed is left to the codec, which still reads it.
+#[test]
+fn direct_frame_decoder_handles_long_forms() {
+    let mut f = synthetic_frame(3, 7, 2, 300);
+    f.contacts[7].module = 40_000;
+    f.contacts[8].sensor = 251;
+    let payload = payload_bytes(&Record::Frame(f.clone()));
+    let direct = codec::direct_frame(&payload).expect("canonical payload");
+    assert_eq!(direct.contacts.len(), 300);
+    assert_eq!(direct.contacts[7].module, 40_000);
+    assert_eq!(direct.contacts[8].sensor, 251);
+    direct_agrees(&payload).unwrap();
+    // A frame without pose, joints or ports: the temperature flag is the
+    // 4th byte after the time; contacts count 0 follows it.
+    let bare = FrameRecord {
+        time_s: 1.0,
+        pose: None,
+        joints: None,
+        port_pressures_pa: None,
+        total_temperature_k: None,
+        contacts: Vec::new(),
+    };
+    let mut payload = payload_bytes(&Record::Frame(bare.clone()));
+    assert_eq!(payload.len(), 13);
+    assert_eq!(payload[12], 0);
+    // Contact count 0 written in the two-byte form: not canonical.
+    payload.truncate(12);
+    payload.extend_from_slice(&[251, 0, 0]);
+    assert!(codec::direct_frame(&payload).is_none());
+    let via_codec = codec::decode_frame_payload(&payload);
+    assert_eq!(via_codec, codec::decode_payload::<FrameRecord>(&payload));
+}
