@@ -173,6 +173,13 @@ fn insert_sorted(out: &mut [WallHit], filled: &mut usize, hit: WallHit) {
 /// Fixed-capacity wall index for `no_std`: a ring of `N` points searched
 /// linearly. Work per query is `O(N)` (plus `O(N k)` for `within` with `k`
 /// output slots), with no allocation.
+///
+/// `nearest` keeps the [`NEAR_CANDIDATES`] nearest slots of its last full
+/// scan and the distance of the next one out. A later query a distance
+/// `delta` away answers from those candidates alone when the best of them
+/// is nearer than that outside distance less `delta` (no other point can
+/// then be as near: triangle inequality), so the answer is exactly the full
+/// scan's; otherwise, and after any insertion, it scans again.
 #[derive(Debug, Clone)]
 pub struct LinearWallIndex<const N: usize> {
     points: [[f64; 3]; N],
@@ -181,7 +188,24 @@ pub struct LinearWallIndex<const N: usize> {
     /// Slot the next insertion writes (the oldest point when full).
     next: usize,
     next_id: u64,
+    near: core::cell::Cell<Option<NearCache>>,
 }
+
+/// Candidates `LinearWallIndex::nearest` keeps from a full scan.
+pub const NEAR_CANDIDATES: usize = 8;
+
+/// The last full nearest scan: where it was asked, its nearest slots, and
+/// the distance of the nearest point left out.
+#[derive(Debug, Clone, Copy)]
+struct NearCache {
+    query_m: [f64; 3],
+    slots: [u32; NEAR_CANDIDATES],
+    count: u8,
+    outside_m: f64,
+}
+
+/// Rounding allowance in the candidate test, m.
+const NEAR_SLACK_M: f64 = 1e-9;
 
 impl<const N: usize> Default for LinearWallIndex<N> {
     fn default() -> Self {
@@ -199,6 +223,7 @@ impl<const N: usize> LinearWallIndex<N> {
             len: 0,
             next: 0,
             next_id: 0,
+            near: core::cell::Cell::new(None),
         }
     }
 
@@ -220,6 +245,7 @@ impl<const N: usize> WallIndex for LinearWallIndex<N> {
         }
         let id = self.next_id;
         let slot = self.next;
+        self.near.set(None);
         match (self.points.get_mut(slot), self.ids.get_mut(slot)) {
             (Some(p), Some(i)) => {
                 *p = point_m;
@@ -236,19 +262,96 @@ impl<const N: usize> WallIndex for LinearWallIndex<N> {
     }
 
     fn nearest(&self, q: [f64; 3]) -> Option<WallHit> {
-        let mut best: Option<WallHit> = None;
-        for (p, id) in self.points.iter().zip(self.ids.iter()).take(self.len) {
-            let hit = WallHit {
-                id: *id,
-                dist_sq_m2: dist_sq(*p, q),
-                point_m: *p,
-            };
-            match &best {
-                Some(b) if !hit.before(b) => {}
-                _ => best = Some(hit),
+        let better = |d: f64, id: u64, b: Option<(f64, u64, usize)>| {
+            b.is_none_or(|(bd, bid, _)| d < bd || (d == bd && id < bid))
+        };
+        let at = |k: usize| Some((*self.points.get(k)?, *self.ids.get(k)?));
+        if let Some(c) = self.near.get() {
+            let delta = libm::sqrt(dist_sq(q, c.query_m));
+            let mut best: Option<(f64, u64, usize)> = None;
+            for &slot in c.slots.iter().take(usize::from(c.count)) {
+                let k = usize::try_from(slot).unwrap_or(usize::MAX);
+                if let Some((p, id)) = at(k) {
+                    let d = dist_sq(p, q);
+                    if better(d, id, best) {
+                        best = Some((d, id, k));
+                    }
+                }
+            }
+            if let Some((d, id, k)) = best
+                && libm::sqrt(d) + delta < c.outside_m - NEAR_SLACK_M
+            {
+                return at(k).map(|(p, _)| WallHit {
+                    id,
+                    dist_sq_m2: d,
+                    point_m: p,
+                });
             }
         }
-        best
+        // Full scan, keeping the nearest NEAR_CANDIDATES + 1 in order.
+        let mut keep = [(f64::INFINITY, u64::MAX, 0usize); NEAR_CANDIDATES + 1];
+        let mut filled = 0usize;
+        for (k, (p, &id)) in self
+            .points
+            .iter()
+            .zip(self.ids.iter())
+            .take(self.len)
+            .enumerate()
+        {
+            let d = dist_sq(*p, q);
+            let worst = keep.get(NEAR_CANDIDATES).copied();
+            if filled > NEAR_CANDIDATES
+                && worst.is_some_and(|(wd, wid, _)| !(d < wd || (d == wd && id < wid)))
+            {
+                continue;
+            }
+            // Insertion into the sorted prefix.
+            let mut pos = filled.min(NEAR_CANDIDATES);
+            while pos > 0 {
+                let Some(&(pd, pid, pk)) = keep.get(pos - 1) else {
+                    break;
+                };
+                if d < pd || (d == pd && id < pid) {
+                    if let Some(slot) = keep.get_mut(pos) {
+                        *slot = (pd, pid, pk);
+                    }
+                    pos -= 1;
+                } else {
+                    break;
+                }
+            }
+            if let Some(slot) = keep.get_mut(pos) {
+                *slot = (d, id, k);
+            }
+            filled = (filled + 1).min(NEAR_CANDIDATES + 1);
+        }
+        let &(d, id, k) = keep.first().filter(|_| filled > 0)?;
+        let count = filled.min(NEAR_CANDIDATES);
+        let mut slots = [0u32; NEAR_CANDIDATES];
+        let mut ok = true;
+        for (s, e) in slots.iter_mut().zip(keep.iter()).take(count) {
+            match u32::try_from(e.2) {
+                Ok(v) => *s = v,
+                Err(_) => ok = false,
+            }
+        }
+        let outside_m = if filled > NEAR_CANDIDATES {
+            keep.get(NEAR_CANDIDATES)
+                .map_or(f64::INFINITY, |e| libm::sqrt(e.0))
+        } else {
+            f64::INFINITY
+        };
+        self.near.set(ok.then_some(NearCache {
+            query_m: q,
+            slots,
+            count: u8::try_from(count).unwrap_or(0),
+            outside_m,
+        }));
+        at(k).map(|(p, _)| WallHit {
+            id,
+            dist_sq_m2: d,
+            point_m: p,
+        })
     }
 
     fn within(&self, q: [f64; 3], radius_m: f64, out: &mut [WallHit]) -> usize {
