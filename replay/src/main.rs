@@ -8,6 +8,33 @@
 //! unusable, malformed JSON).
 
 use std::io::Write;
+
+/// `println!` that ends the process quietly when standard output is
+/// closed (a reader such as `head` stopped early) instead of panicking:
+/// exit status 141, as a shell reports a process ended by SIGPIPE.
+macro_rules! outln {
+    ($($t:tt)*) => {{
+        let mut o = std::io::stdout().lock();
+        if writeln!(o, $($t)*).is_err() {
+            stdout_closed()
+        }
+    }};
+}
+
+/// `print!` with the same handling as [`outln!`].
+macro_rules! out {
+    ($($t:tt)*) => {{
+        let mut o = std::io::stdout().lock();
+        if write!(o, $($t)*).and_then(|()| o.flush()).is_err() {
+            stdout_closed()
+        }
+    }};
+}
+
+/// Standard output is gone: stop at once, with the SIGPIPE status.
+fn stdout_closed() -> ! {
+    std::process::exit(141)
+}
 use std::path::PathBuf;
 use std::process::ExitCode;
 
@@ -38,17 +65,19 @@ fn write_json<T: serde::Serialize>(path: &std::path::Path, v: &T) -> Result<(), 
 }
 
 fn print_summary(s: &RunSummary) {
-    println!("input        {}", s.input);
+    outln!("input        {}", s.input);
     if let (Some(name), Some(seed)) = (&s.scenario, s.seed) {
-        println!("scenario     {name} (seed {seed})");
+        outln!("scenario     {name} (seed {seed})");
     }
-    println!("outcome      {}", s.outcome);
-    println!(
+    outln!("outcome      {}", s.outcome);
+    outln!(
         "steps        {} ({:.2} s to {:.2} s)",
-        s.trace.steps, s.time_span_s[0], s.time_span_s[1]
+        s.trace.steps,
+        s.time_span_s[0],
+        s.time_span_s[1]
     );
     if let Some(t) = &s.truth {
-        println!(
+        outln!(
             "truth        reached source: {}{}; wrong branches {}; min standoff {:.3} m; wall strikes {}; travelled {:.1} m; held {:.1} s",
             if t.reached_source { "yes" } else { "no" },
             t.reached_at_s
@@ -60,7 +89,7 @@ fn print_summary(s: &RunSummary) {
             t.time_held_s
         );
     }
-    println!("mode changes {}", s.trace.mode_changes);
+    outln!("mode changes {}", s.trace.mode_changes);
     let mut reasons: Vec<_> = s.trace.reasons.iter().collect();
     reasons.sort_by(|a, b| b.1.cmp(a.1).then(a.0.cmp(b.0)));
     let top: Vec<String> = reasons
@@ -68,11 +97,11 @@ fn print_summary(s: &RunSummary) {
         .take(5)
         .map(|(k, v)| format!("{k} {v}"))
         .collect();
-    println!("reasons      {}", top.join(", "));
+    outln!("reasons      {}", top.join(", "));
     if !s.faults_seen.is_empty() {
-        println!("faults       {}", s.faults_seen.join("; "));
+        outln!("faults       {}", s.faults_seen.join("; "));
     }
-    println!("digest       {}", s.trace.trace_digest);
+    outln!("digest       {}", s.trace.trace_digest);
 }
 
 fn is_log(path: &str) -> bool {
@@ -257,7 +286,7 @@ enum Command {
 
 fn print_json<T: serde::Serialize>(v: &T) -> Result<(), String> {
     let text = serde_json::to_string_pretty(v).map_err(|e| e.to_string())?;
-    println!("{text}");
+    outln!("{text}");
     Ok(())
 }
 
@@ -278,7 +307,7 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             if json {
                 print_json(&report)?;
             } else {
-                print!("{report}");
+                out!("{report}");
             }
             Ok(ExitCode::from(if report.is_clean() { 0 } else { 1 }))
         }
@@ -301,14 +330,14 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             let verdict = Verdict::of(&result);
             match &result {
                 Ok(r) if json => print_json(r)?,
-                Ok(r) => print!("{r}"),
+                Ok(r) => out!("{r}"),
                 Err(e) => eprintln!("replay diff: {e}"),
             }
             Ok(ExitCode::from(verdict.exit_code()))
         }
         Command::Import { csv, map, out } => {
             let sum = import_files(&csv, &map, &out).map_err(|e| e.to_string())?;
-            println!(
+            outln!(
                 "imported {} rows: {} frames, {} notes, {} contacts, {} bytes -> {}",
                 sum.rows,
                 sum.frames,
@@ -317,7 +346,7 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
                 sum.bytes,
                 out.display()
             );
-            println!(
+            outln!(
                 "missing: ports in {} rows ({} single port cells as NaN), pose in {} rows, joints in {} rows",
                 sum.rows_without_ports,
                 sum.missing_port_cells,
@@ -331,7 +360,7 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
                 let desc = replay::sim::scenario::Scenario::from_toml_str(text)
                     .map(|s| s.description)
                     .unwrap_or_default();
-                println!("demo:{key:<18} {desc}");
+                outln!("demo:{key:<18} {desc}");
             }
             Ok(ExitCode::SUCCESS)
         }
@@ -357,7 +386,7 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             let svg_path = out.join("plot.svg");
             std::fs::write(&svg_path, replay::plot::render_svg(&res.scene))
                 .map_err(|e| format!("{}: {e}", svg_path.display()))?;
-            println!(
+            outln!(
                 "wrote        {}, {}, {}",
                 trace_path.display(),
                 summary_path.display(),
@@ -383,7 +412,7 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             if let Some(mut w) = w {
                 w.flush().map_err(|e| format!("{}: {e}", out.display()))?;
             }
-            println!(
+            outln!(
                 "wrote {} frames to {} ({}); trace digest {}",
                 res.summary.trace.steps,
                 out.display(),
@@ -476,10 +505,10 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             w.flush().map_err(|e| format!("{}: {e}", out.display()))?;
             let wall = started.elapsed().as_secs_f64();
             if shard == Shard::ALL {
-                print!("{}", format_table(&summarise(&plan, &results)));
+                out!("{}", format_table(&summarise(&plan, &results)));
                 print_failures(&results, max_time);
             }
-            println!(
+            outln!(
                 "{} runs in {wall:.1} s wall time; results in {}",
                 results.len(),
                 out.display()
@@ -499,7 +528,7 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
                 )?);
             }
             let (plan, results) = merge(shards)?;
-            print!("{}", format_table(&summarise(&plan, &results)));
+            out!("{}", format_table(&summarise(&plan, &results)));
             print_failures(&results, None);
             if let Some(out) = out {
                 let mut w = create(&out)?;
@@ -525,7 +554,7 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             w.write_all(replay::plot::render_svg(&res.scene).as_bytes())
                 .and_then(|()| w.flush())
                 .map_err(|e| format!("{}: {e}", out.display()))?;
-            println!(
+            outln!(
                 "{}: {}; wrote {}",
                 input,
                 res.summary.outcome,
@@ -547,9 +576,9 @@ fn print_failures(results: &[replay::campaign::SeedResult], max_time: Option<f64
     if failing.is_empty() {
         return;
     }
-    println!("failing runs ({}), each rerun by:", failing.len());
+    outln!("failing runs ({}), each rerun by:", failing.len());
     for r in failing {
-        println!(
+        outln!(
             "  replay run {} --seed {}{limit}    # {}",
             r.scenario,
             r.seed,

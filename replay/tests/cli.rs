@@ -111,3 +111,26 @@ fn diff_exit_codes() {
     assert!(err.contains("c.jsonl:2:9: not JSON"), "{err}");
     assert_eq!(replay(&["diff", a]).0, 2, "usage error");
 }
+
+/// A reader that stops early (`replay ... | head`) closes the pipe; the
+/// program must stop quietly with the SIGPIPE status, not panic.
+#[test]
+fn a_closed_standard_output_ends_quietly() {
+    for args in [
+        &["scenarios"][..],
+        &["inspect", "../fixtures/logs/kettle-7-12s.upl"][..],
+    ] {
+        let (reader, writer) = std::io::pipe().unwrap();
+        drop(reader);
+        let out = Command::new(env!("CARGO_BIN_EXE_replay"))
+            .current_dir(env!("CARGO_MANIFEST_DIR"))
+            .args(args)
+            .stdout(writer)
+            .stderr(std::process::Stdio::piped())
+            .output()
+            .unwrap();
+        let err = String::from_utf8(out.stderr).unwrap();
+        assert!(!err.contains("panicked"), "{args:?}: {err}");
+        assert_eq!(out.status.code(), Some(141), "{args:?}: {err}");
+    }
+}
