@@ -1306,6 +1306,12 @@ fn steer(
                 reason = ReasonCode::Recentre;
             }
         }
+        // No clearance known: the feel speed while the flow leads; with
+        // the flow failed too (following the conduit by feel, or the last
+        // heading), creep.
+        None if reason == ReasonCode::FollowByFeel => {
+            cap(creep, SpeedLimit::Feel, &mut v, &mut limit);
+        }
         None => cap(cfg.feel_speed_m_per_s, SpeedLimit::Feel, &mut v, &mut limit),
     }
     if let Some(t) = p.wall.and_then(|w| w.throat) {

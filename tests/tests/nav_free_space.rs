@@ -216,3 +216,26 @@ fn a_wall_ahead_beside_the_flow_is_steered_round_not_a_stop() {
     assert_ne!(c.record.reason, ReasonCode::GaveUp, "{c:?}");
     assert!(c.speed_m_per_s > 0.0, "{c:?}");
 }
+
+#[test]
+fn with_the_flow_failed_and_nothing_felt_it_creeps() {
+    let mut n = nav();
+    let creep = NavConfig::for_robot(R).decide.creep_speed_m_per_s;
+    for k in 0..200 {
+        step(
+            &mut n,
+            k,
+            Some(flow([-1.0, 0.0, 0.0], 1.0)),
+            WallObservation::EMPTY,
+        );
+    }
+    // The probe stops reporting; the skin stays quiet.
+    let mut last = None;
+    for k in 200..500 {
+        last = Some(step(&mut n, k, None, WallObservation::EMPTY));
+    }
+    let c = last.expect("commands");
+    assert_eq!(c.mode, OperatingMode::TactileOnly, "{c:?}");
+    assert_eq!(c.record.reason, ReasonCode::FollowByFeel, "{c:?}");
+    assert!(c.speed_m_per_s > 0.0 && c.speed_m_per_s <= creep, "{c:?}");
+}
