@@ -132,8 +132,9 @@ pub struct HealthConfig {
     /// Age of the last valid flow solution beyond which the flow channel
     /// is failed, s.
     pub flow_timeout_s: f64,
-    /// Age of the last usable cross-section beyond which the tactile
-    /// channel is failed, s.
+    /// Age of the last tactile report (a quiet skin counts) beyond which
+    /// the tactile channel is failed, s. The navigator also forgets its
+    /// last cross-section after this long without a new one.
     pub tactile_timeout_s: f64,
     /// Time a less severe candidate mode must hold before it is adopted, s.
     pub mode_recover_s: f64,
@@ -178,7 +179,8 @@ pub struct ChannelStatus {
     pub reason: ChannelReason,
     /// Sensors of this channel not failed.
     pub usable_sensors: u8,
-    /// Time of the last usable estimate, s (`-inf` before the first).
+    /// Time of the last valid flow solution or tactile report, s (`-inf`
+    /// before the first).
     pub last_good_s: f64,
 }
 

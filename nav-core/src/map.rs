@@ -104,9 +104,13 @@ impl WallHit {
     /// `(dist_sq, id)` ordering: true when `self` comes before `other`.
     #[must_use]
     pub fn before(&self, other: &Self) -> bool {
-        self.dist_sq_m2 < other.dist_sq_m2
-            || (self.dist_sq_m2 == other.dist_sq_m2 && self.id < other.id)
+        precedes(self.dist_sq_m2, self.id, other.dist_sq_m2, other.id)
     }
+}
+
+/// The `(dist_sq, id)` order of wall hits: nearer first, then older.
+fn precedes(d: f64, id: u64, other_d: f64, other_id: u64) -> bool {
+    d < other_d || (d == other_d && id < other_id)
 }
 
 /// Why a wall point was not stored.
@@ -263,7 +267,7 @@ impl<const N: usize> WallIndex for LinearWallIndex<N> {
 
     fn nearest(&self, q: [f64; 3]) -> Option<WallHit> {
         let better = |d: f64, id: u64, b: Option<(f64, u64, usize)>| {
-            b.is_none_or(|(bd, bid, _)| d < bd || (d == bd && id < bid))
+            b.is_none_or(|(bd, bid, _)| precedes(d, id, bd, bid))
         };
         let at = |k: usize| Some((*self.points.get(k)?, *self.ids.get(k)?));
         if let Some(c) = self.near.get() {
@@ -301,7 +305,7 @@ impl<const N: usize> WallIndex for LinearWallIndex<N> {
             let d = dist_sq(*p, q);
             let worst = keep.get(NEAR_CANDIDATES).copied();
             if filled > NEAR_CANDIDATES
-                && worst.is_some_and(|(wd, wid, _)| !(d < wd || (d == wd && id < wid)))
+                && worst.is_some_and(|(wd, wid, _)| !precedes(d, id, wd, wid))
             {
                 continue;
             }
@@ -311,7 +315,7 @@ impl<const N: usize> WallIndex for LinearWallIndex<N> {
                 let Some(&(pd, pid, pk)) = keep.get(pos - 1) else {
                     break;
                 };
-                if d < pd || (d == pd && id < pid) {
+                if precedes(d, id, pd, pid) {
                     if let Some(slot) = keep.get_mut(pos) {
                         *slot = (pd, pid, pk);
                     }

@@ -433,12 +433,7 @@ impl FlowFilter {
         // as coming from ahead. Take the reverse; the fused history fixes
         // the sense.
         let dir = match self.est.velocity_dir_map {
-            Some(x0)
-                if x0[0] * dir[0] + x0[1] * dir[1] + x0[2] * dir[2]
-                    < -libm::cos(cfg.flow_outlier_rad) =>
-            {
-                [-dir[0], -dir[1], -dir[2]]
-            }
+            Some(x0) if dot(x0, dir) < -libm::cos(cfg.flow_outlier_rad) => scale(dir, -1.0),
             _ => dir,
         };
         let dt = if self.last_update_s.is_finite() {

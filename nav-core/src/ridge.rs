@@ -134,8 +134,9 @@ impl RidgeSeeker {
     /// the leg before would read as lateral in the new one), rad.
     pub const RESTART_TURN_RAD: f64 = 0.25;
 
-    /// Forget everything (a junction, a back-out: the profile changes).
-    pub fn clear(&mut self) {
+    /// Forget the window (the flow turned: a bend or a junction), keeping
+    /// the travel that drives the dither phase.
+    fn clear(&mut self) {
         let travelled = self.travelled_m;
         *self = Self::NEW;
         self.travelled_m = travelled;
@@ -254,8 +255,10 @@ impl RidgeSeeker {
         out
     }
 
-    /// The fitted gradient of q, Pa/m, map frame; `None` while the window's
-    /// lateral spread is below `min_spread_m` or the system is singular.
+    /// The fitted gradient of q, Pa/m, map frame; `None` while the window
+    /// is short, its lateral spread is below `min_spread_m`, the system is
+    /// singular, the lateral gradient is not significant, or q changes
+    /// along the flow too fast for the model.
     fn gradient(&self, u: [f64; 3], cfg: &RidgeConfig) -> Option<[f64; 3]> {
         // Enough samples that one or two cannot carry the fit, over at
         // least half a window of travel.

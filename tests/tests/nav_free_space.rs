@@ -48,6 +48,16 @@ fn flow(dir: [f64; 3], q: f64) -> FlowObservation {
     }
 }
 
+/// A navigator after 2 s of steady flow along `dir` at 1 Pa with a quiet
+/// skin (the filter and the health dwell have settled).
+fn settled(dir: [f64; 3]) -> Box<StandardNavigator> {
+    let mut n = nav();
+    for k in 0..200 {
+        step(&mut n, k, Some(flow(dir, 1.0)), WallObservation::EMPTY);
+    }
+    n
+}
+
 fn step(
     n: &mut StandardNavigator,
     k: u32,
@@ -105,15 +115,7 @@ fn no_skin_report_at_all_still_fails_the_tactile_channel() {
 
 #[test]
 fn a_reversed_reading_is_taken_as_the_mirror_of_the_fused_flow() {
-    let mut n = nav();
-    for k in 0..200 {
-        step(
-            &mut n,
-            k,
-            Some(flow([-1.0, 0.0, 0.0], 1.0)),
-            WallObservation::EMPTY,
-        );
-    }
+    let mut n = settled([-1.0, 0.0, 0.0]);
     // The head turns away: the sphere model reads the same pressures for
     // the reverse flow. Far more readings than the outlier reset count.
     let resets = u32::from(NavConfig::for_robot(R).flow_outlier_reset);
@@ -142,15 +144,7 @@ fn end_ahead() -> WallObservation {
 
 #[test]
 fn a_wall_ahead_with_the_flow_coming_out_of_it_is_held_as_arrived() {
-    let mut n = nav();
-    for k in 0..200 {
-        step(
-            &mut n,
-            k,
-            Some(flow([-1.0, 0.0, 0.0], 1.0)),
-            WallObservation::EMPTY,
-        );
-    }
+    let mut n = settled([-1.0, 0.0, 0.0]);
     let c = step(&mut n, 200, Some(flow([-1.0, 0.0, 0.0], 1.0)), end_ahead());
     assert_eq!(c.record.reason, ReasonCode::HoldAtSource, "{c:?}");
     assert_eq!(c.record.phase, Phase::AtSource);
@@ -170,16 +164,8 @@ fn a_wall_ahead_with_the_flow_coming_out_of_it_is_held_as_arrived() {
 
 #[test]
 fn a_wall_ahead_in_still_air_is_a_dead_end() {
-    let mut n = nav();
+    let mut n = settled([-1.0, 0.0, 0.0]);
     let weak = NavConfig::for_robot(R).decide.min_dynamic_pressure_pa * 0.1;
-    for k in 0..200 {
-        step(
-            &mut n,
-            k,
-            Some(flow([-1.0, 0.0, 0.0], 1.0)),
-            WallObservation::EMPTY,
-        );
-    }
     // The air goes still (the filter follows within a few frames).
     let mut c = None;
     for k in 200..400 {
@@ -199,18 +185,10 @@ fn a_wall_ahead_in_still_air_is_a_dead_end() {
 
 #[test]
 fn a_wall_ahead_beside_the_flow_is_steered_round_not_a_stop() {
-    let mut n = nav();
     // Flow coming from 45 degrees to the left of the head's axis: the
     // wall felt straight ahead is a bend, not where the air comes from.
     let s = std::f64::consts::FRAC_1_SQRT_2;
-    for k in 0..200 {
-        step(
-            &mut n,
-            k,
-            Some(flow([-s, -s, 0.0], 1.0)),
-            WallObservation::EMPTY,
-        );
-    }
+    let mut n = settled([-s, -s, 0.0]);
     let c = step(&mut n, 200, Some(flow([-s, -s, 0.0], 1.0)), end_ahead());
     assert_ne!(c.record.reason, ReasonCode::HoldAtSource, "{c:?}");
     assert_ne!(c.record.reason, ReasonCode::GaveUp, "{c:?}");
@@ -219,16 +197,8 @@ fn a_wall_ahead_beside_the_flow_is_steered_round_not_a_stop() {
 
 #[test]
 fn with_the_flow_failed_and_nothing_felt_it_creeps() {
-    let mut n = nav();
+    let mut n = settled([-1.0, 0.0, 0.0]);
     let creep = NavConfig::for_robot(R).decide.creep_speed_m_per_s;
-    for k in 0..200 {
-        step(
-            &mut n,
-            k,
-            Some(flow([-1.0, 0.0, 0.0], 1.0)),
-            WallObservation::EMPTY,
-        );
-    }
     // The probe stops reporting; the skin stays quiet.
     let mut last = None;
     for k in 200..500 {
