@@ -7,5 +7,6 @@ pub mod import;
 pub mod log;
 pub mod plot;
 pub mod record;
+pub mod report;
 pub mod run;
 pub mod sim;
