@@ -384,8 +384,12 @@ fn small_scorecard_meets_measured_floor() {
             row.failing
         );
     }
-    // Every result carries what regenerates it.
-    assert!(results.iter().all(|r| !r.parameters.is_empty()));
+    // Every result carries what regenerates and reruns it.
+    for r in &results {
+        assert!(!r.parameters.is_empty(), "{r:?}");
+        let world = format!("replay world {} --seed {} -o", &r.scenario[6..], r.seed);
+        assert!(r.rerun.starts_with(&world), "{}", r.rerun);
+    }
 }
 
 /// The committed generated worlds (`fixtures/worlds/`, each with its
