@@ -940,7 +940,8 @@ pub fn import_csv<R: BufRead, W: Write>(
     };
     let mut names = Vec::new();
     let Some(header_line) = reader.next(0, true, &mut names)? else {
-        return Err(reader.err(0, 0, "no header row".to_owned()));
+        // Lines count from 1: an empty file fails at its first line.
+        return Err(reader.err(reader.line.max(1), 0, "no header row".to_owned()));
     };
     for n in &mut names {
         *n = n.trim().to_owned();

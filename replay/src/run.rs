@@ -141,7 +141,7 @@ fn layout<const N: usize>(robot: &RobotSpec) -> Result<ProbeLayout<N>, RunError>
         }
         ProbeLayoutSpec::Custom { normals } if normals.len() == N => custom_from(normals, sigma),
         other => Err(RunError::Robot(format!(
-            "probe layout {other:?} does not have {N} ports"
+            "the probe layout ({other}) does not have {N} ports"
         ))),
     }
 }
@@ -357,8 +357,8 @@ pub struct TraceSink<W: Write> {
     last_mode: Option<nav_core::health::OperatingMode>,
     reasons: BTreeMap<String, u64>,
     held_steps: u64,
-    failed_ports_seen: u32,
-    failed_contacts_seen: u64,
+    failed_ports_mask: u32,
+    failed_contacts_mask: u64,
     last_reason: Option<String>,
 }
 
@@ -374,8 +374,8 @@ impl<W: Write> TraceSink<W> {
             last_mode: None,
             reasons: BTreeMap::new(),
             held_steps: 0,
-            failed_ports_seen: 0,
-            failed_contacts_seen: 0,
+            failed_ports_mask: 0,
+            failed_contacts_mask: 0,
             last_reason: None,
         }
     }
@@ -408,8 +408,8 @@ impl<W: Write> TraceSink<W> {
         if c.speed_m_per_s == 0.0 {
             self.held_steps += 1;
         }
-        self.failed_ports_seen |= c.health.failed_ports;
-        self.failed_contacts_seen |= c.health.failed_contacts;
+        self.failed_ports_mask |= c.health.failed_ports;
+        self.failed_contacts_mask |= c.health.failed_contacts;
         Ok(())
     }
 
@@ -431,8 +431,10 @@ impl<W: Write> TraceSink<W> {
             mode_changes: self.mode_changes,
             reasons: self.reasons,
             held_steps: self.held_steps,
-            failed_ports_seen: self.failed_ports_seen,
-            failed_contacts_seen: self.failed_contacts_seen,
+            failed_ports_mask: self.failed_ports_mask,
+            failed_ports_count: self.failed_ports_mask.count_ones(),
+            failed_contacts_mask: self.failed_contacts_mask,
+            failed_contacts_count: self.failed_contacts_mask.count_ones(),
             last_reason: self.last_reason,
         };
         Ok((self.out, stats))
@@ -452,10 +454,15 @@ pub struct TraceStats {
     pub reasons: BTreeMap<String, u64>,
     /// Steps with zero commanded speed.
     pub held_steps: u64,
-    /// Bit mask of ports reported failed at any step.
-    pub failed_ports_seen: u32,
-    /// Bit mask of contact sensors reported failed at any step.
-    pub failed_contacts_seen: u64,
+    /// Bit mask of the ports reported failed at any step (bit k: port k).
+    pub failed_ports_mask: u32,
+    /// Ports reported failed at any step (the bits set in the mask).
+    pub failed_ports_count: u32,
+    /// Bit mask of the contact sensors reported failed at any step (bit k:
+    /// sensor k in configuration order).
+    pub failed_contacts_mask: u64,
+    /// Contact sensors reported failed at any step.
+    pub failed_contacts_count: u32,
     /// Reason code of the last step.
     pub last_reason: Option<String>,
 }
@@ -483,6 +490,22 @@ pub struct RunSummary {
     pub probe_errors: u64,
     /// Frames the tactile layer refused.
     pub tactile_errors: u64,
+    /// Damage skipped by a salvaging read of a log (`None`: not a
+    /// salvaging read, or nothing was damaged).
+    pub salvaged: Option<SalvageReport>,
+}
+
+/// What a salvaging read skipped.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SalvageReport {
+    /// Damaged places.
+    pub places: u64,
+    /// Bytes skipped.
+    pub bytes_skipped: u64,
+    /// Records known lost.
+    pub records_lost: u64,
+    /// The places, in file order (at most the reader's listing limit).
+    pub damage: Vec<crate::log::Damage>,
 }
 
 /// Options of a live run.
@@ -672,6 +695,7 @@ pub fn run_live<T: Write, L: Write>(
         faults_seen: faults,
         probe_errors,
         tactile_errors,
+        salvaged: None,
     };
     add_world_to_scene(&sim, &mut scene);
     Ok((LiveResult { summary, scene }, log_out))
@@ -684,7 +708,7 @@ fn active_fault_labels(sim: &Sim) -> Vec<String> {
         .faults
         .iter()
         .filter(|f| f.active(t))
-        .map(|f| format!("{:?} from {} s", f.kind, f.at_s))
+        .map(ToString::to_string)
         .collect()
 }
 
@@ -773,21 +797,37 @@ pub fn run_log<R: std::io::Read, T: Write>(
     }
     let (probe_errors, tactile_errors) = counters(&nav);
     let (_, stats) = sink.finish()?;
+    let st = r.stats();
+    let salvaged = (st.damaged_places > 0).then(|| SalvageReport {
+        places: st.damaged_places,
+        bytes_skipped: st.bytes_skipped,
+        records_lost: st.records_lost,
+        damage: r.damage().to_vec(),
+    });
+    let mut outcome = if r.saw_end() {
+        "end of log".to_string()
+    } else {
+        "log ended without its end record".to_string()
+    };
+    if let Some(s) = &salvaged {
+        outcome = format!(
+            "{outcome}, salvaged past {} damaged {}",
+            s.places,
+            crate::report::plural(s.places, "place", "places")
+        );
+    }
     Ok(RunSummary {
         input: input.to_string(),
         scenario: header.provenance.get("scenario").cloned(),
         seed: header.provenance.get("seed").and_then(|s| s.parse().ok()),
-        outcome: if r.saw_end() {
-            "end of log".to_string()
-        } else {
-            "log ended without its end record".to_string()
-        },
+        outcome,
         time_span_s: span,
         trace: stats,
         truth: None,
         faults_seen: faults,
         probe_errors,
         tactile_errors,
+        salvaged,
     })
 }
 

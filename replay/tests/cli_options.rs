@@ -313,3 +313,43 @@ fn inspect_names_file_header_damage_and_counts_bytes_after_the_end() {
         "{out}"
     );
 }
+
+#[test]
+fn salvage_reports_what_it_skipped() {
+    let clean = fixtures().join("logs/drift-5-10s.upl");
+    let mut bytes = std::fs::read(&clean).expect("fixture");
+    let n = bytes.len();
+    bytes[n / 2] ^= 0x5a;
+    let bad = scratch("drift-salvage.upl");
+    std::fs::write(&bad, &bytes).expect("write");
+    let dir = scratch("salvage-out");
+    let (code, out, err) = replay(&["run", s(&bad), "--salvage", "-o", s(&dir)]);
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        err.contains("replay run: skipped 1 damaged place at this offset: "),
+        "{err}"
+    );
+    assert!(err.contains("  byte "), "the offset is listed: {err}");
+    assert!(out.contains("salvaged     1 damaged place, "), "{out}");
+    let summary: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("summary.json")).expect("summary"))
+            .expect("JSON");
+    assert_eq!(summary["salvaged"]["places"], 1);
+    assert!(summary["salvaged"]["bytes_skipped"].as_u64() > Some(0));
+    let offset = summary["salvaged"]["damage"][0]["offset"]
+        .as_u64()
+        .expect("offset");
+    assert!(offset > 0 && offset <= n as u64 / 2, "{offset}");
+    let outcome = summary["outcome"].as_str().expect("outcome");
+    assert_eq!(outcome, "end of log, salvaged past 1 damaged place");
+
+    let dir = scratch("salvage-clean");
+    let (code, _, err) = replay(&["run", s(&clean), "--salvage", "-o", s(&dir)]);
+    assert_eq!(code, 0, "{err}");
+    assert!(err.is_empty(), "nothing skipped: {err}");
+    let summary: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("summary.json")).expect("summary"))
+            .expect("JSON");
+    assert_eq!(summary["outcome"], "end of log");
+    assert!(summary["salvaged"].is_null());
+}

@@ -29,12 +29,13 @@ pub fn exec(a: Args, out: &mut Out) -> Result<ExitCode, String> {
         std::fs::create_dir_all(dir).map_err(|e| format!("{}: {e}", dir.display()))?;
     }
     let sum = import_files(&a.csv, &a.map, &a.out).map_err(|e| e.to_string())?;
+    use replay::report::count;
     out.line(format_args!(
-        "imported {} rows: {} frames, {} notes, {} contacts, {} bytes -> {}",
-        sum.rows,
-        sum.frames,
-        sum.notes,
-        sum.contacts,
+        "imported {}: {}, {}, {}, {} bytes -> {}",
+        count(sum.rows, "row", "rows"),
+        count(sum.frames, "frame", "frames"),
+        count(sum.notes, "note", "notes"),
+        count(sum.contacts, "contact", "contacts"),
         sum.bytes,
         a.out.display()
     ));

@@ -93,6 +93,10 @@ pub fn exec(a: Args, out: &mut Out) -> Result<ExitCode, String> {
             .summary
     };
     write_json(&summary, &s)?;
+    let skipped = replay::report::salvage_text(&s);
+    if !skipped.is_empty() {
+        out.note("run", skipped.trim_end());
+    }
     out.text(replay::report::run_summary_text(&s));
     Ok(ExitCode::SUCCESS)
 }

@@ -379,8 +379,14 @@ pub fn inspect<R: Read>(src: R, opts: ReadOptions) -> Result<InspectReport, LogE
     })
 }
 
+/// A time or interval rounded for reading (the JSON report keeps full
+/// precision).
 fn opt(v: Option<f64>, unit: &str) -> String {
-    v.map_or_else(|| "-".to_owned(), |x| format!("{x} {unit}"))
+    v.map_or_else(|| "-".to_owned(), |x| format!("{x:.3} {unit}"))
+}
+
+fn plural(n: u64, one: &str, many: &str) -> String {
+    format!("{n} {}", if n == 1 { one } else { many })
 }
 
 impl std::fmt::Display for InspectReport {
@@ -388,9 +394,9 @@ impl std::fmt::Display for InspectReport {
         let h = &self.header;
         writeln!(
             f,
-            "header: {} bytes; {} modules, probe {:?}, gas gamma {} R {} J/(kg K)",
+            "header: {} bytes; {}, probe {}, gas gamma {} R {} J/(kg K)",
             self.header_bytes,
-            h.robot.modules.len(),
+            plural(h.robot.modules.len() as u64, "module", "modules"),
             h.robot.probe.layout,
             h.gas.gamma,
             h.gas.r_j_per_kg_k
@@ -477,8 +483,10 @@ impl std::fmt::Display for InspectReport {
         let v = &self.salvage;
         writeln!(
             f,
-            "damage: {} places, {} bytes skipped, {} records lost",
-            v.damaged_places, v.bytes_skipped, v.records_lost
+            "damage: {}, {} bytes skipped, {} lost",
+            plural(v.damaged_places, "place", "places"),
+            v.bytes_skipped,
+            plural(v.records_lost, "record", "records")
         )?;
         for d in &self.damage {
             writeln!(f, "  {d}")?;
