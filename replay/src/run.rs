@@ -613,31 +613,8 @@ pub fn run_live<T: Write, L: Write>(
         sink.push(&cmd)?;
         if opts.scene_every > 0 && step.is_multiple_of(opts.scene_every) {
             let t = sim.true_state();
-            scene.path.push(t.head_position_m);
-            let snap = nav.snapshot();
-            if let Some((c, a, r)) = snap.section {
-                scene.sections.push(crate::plot::SectionMark {
-                    centre_m: c,
-                    axis: a,
-                    radius_m: r,
-                });
-            }
-            // One flow arrow per metre travelled keeps the picture legible
-            // whatever the speed.
-            let far_enough = scene.flow.last().is_none_or(|a| {
-                let d: f64 = (0..3)
-                    .map(|i| (a.position_m[i] - t.head_position_m[i]).powi(2))
-                    .sum();
-                d >= 1.0
-            });
-            if far_enough && let Some(d) = snap.flow_dir {
-                scene.flow.push(crate::plot::FlowArrow {
-                    position_m: t.head_position_m,
-                    direction: d,
-                    strength: 1.0,
-                });
-            }
-            scene.contacts.extend(snap.wall_points);
+            let active = u32::try_from(active_fault_labels(&sim).len()).unwrap_or(u32::MAX);
+            add_to_scene(&mut scene, t.head_position_m, &nav, &cmd, active);
         }
         for f in active_fault_labels(&sim) {
             if !faults.contains(&f) {
@@ -677,6 +654,11 @@ pub fn run_live<T: Write, L: Write>(
     let snap = nav.snapshot();
     scene.junctions = snap.junctions;
     scene.start_m = scene.path.first().copied();
+    scene.path_label = "true path".to_string();
+    if opts.scene_every > 0 {
+        scene.path.push(sim.true_state().head_position_m);
+        scene.end = Some((sim.true_state().head_position_m, outcome.clone()));
+    }
     let o = sim.outcome();
     let (probe_errors, tactile_errors) = counters(&nav);
     let (_, stats) = sink.finish()?;
@@ -699,6 +681,49 @@ pub fn run_live<T: Write, L: Write>(
     };
     add_world_to_scene(&sim, &mut scene);
     Ok((LiveResult { summary, scene }, log_out))
+}
+
+/// Add one moment to a plot scene: the head position (true, or odometry),
+/// what the navigator believes, and a time-strip sample.
+fn add_to_scene(
+    scene: &mut crate::plot::Scene,
+    head_m: [f64; 3],
+    nav: &AnyNavigator,
+    cmd: &Command,
+    faults_active: u32,
+) {
+    scene.path.push(head_m);
+    let snap = nav.snapshot();
+    if let Some((c, a, r)) = snap.section {
+        scene.sections.push(crate::plot::SectionMark {
+            centre_m: c,
+            axis: a,
+            radius_m: r,
+        });
+    }
+    // One flow arrow per metre travelled keeps the picture legible
+    // whatever the speed.
+    let far_enough = scene.flow.last().is_none_or(|a| {
+        let d: f64 = (0..3).map(|i| (a.position_m[i] - head_m[i]).powi(2)).sum();
+        d >= 1.0
+    });
+    if far_enough && let Some(d) = snap.flow_dir {
+        scene.flow.push(crate::plot::FlowArrow {
+            position_m: head_m,
+            direction: d,
+            strength: 1.0,
+        });
+    }
+    scene.contacts.extend(snap.wall_points);
+    scene.timeline.push(crate::plot::TimeSample {
+        time_s: cmd.time_s,
+        speed_m_per_s: cmd.speed_m_per_s,
+        dynamic_pressure_pa: cmd.record.dynamic_pressure_pa,
+        standoff_m: cmd.record.standoff_m,
+        mode: format!("{:?}", cmd.mode),
+        reason: format!("{:?}", cmd.record.reason),
+        faults_active,
+    });
 }
 
 /// Labels of the scenario faults active now.
@@ -737,15 +762,148 @@ pub fn add_world_to_scene(sim: &Sim, scene: &mut crate::plot::Scene) {
             down.push([p[0], p[1], p[2] - r]);
         }
         scene.centrelines.push(centre);
-        scene.true_walls.push(left);
-        scene.true_walls.push(right);
-        scene.true_walls.push(up);
-        scene.true_walls.push(down);
+        // Side walls in the top view, roof and floor in the side view (the
+        // others project onto the centreline); each broken where another
+        // conduit opens into this one.
+        scene.walls_top.extend(outside_other_tubes(g, c, &left));
+        scene.walls_top.extend(outside_other_tubes(g, c, &right));
+        scene.walls_side.extend(outside_other_tubes(g, c, &up));
+        scene.walls_side.extend(outside_other_tubes(g, c, &down));
+    }
+    let sc = sim.scenario();
+    let mut degree = vec![0u32; sc.nodes.len()];
+    for cg in &g.conduits {
+        for n in [cg.from, cg.to] {
+            if let Some(d) = degree.get_mut(n) {
+                *d += 1;
+            }
+        }
+    }
+    use crate::sim::scenario::NodeKind;
+    for (n, d) in sc.nodes.iter().zip(&degree) {
+        let role = match n.kind {
+            NodeKind::Exit { .. } => Some(crate::plot::NodeRole::Exit),
+            NodeKind::Junction if *d <= 1 => Some(crate::plot::NodeRole::BlindEnd),
+            NodeKind::Junction => None,
+            _ => Some(crate::plot::NodeRole::Source),
+        };
+        if let Some(role) = role {
+            scene.nodes.push(crate::plot::NodeMark {
+                position_m: n.position_m,
+                role,
+                label: n.id.clone(),
+            });
+        }
     }
     scene.source_m = sim
         .true_path()
         .and_then(|p| sim.scenario().nodes.get(p.source))
         .map(|n| n.position_m);
+}
+
+/// The runs of `line` (a wall of conduit `c`) that lie outside every other
+/// conduit: the wall stops where another tube opens into this one.
+fn outside_other_tubes(
+    g: &crate::sim::geometry::Geometry,
+    c: usize,
+    line: &[[f64; 3]],
+) -> Vec<Vec<[f64; 3]>> {
+    let mut runs = Vec::new();
+    let mut run: Vec<[f64; 3]> = Vec::new();
+    for p in line {
+        let inside_other = g.candidates(*p).iter().any(|&pi| {
+            g.pieces.get(pi as usize).is_some_and(|piece| {
+                let h = piece.locate(pi, *p);
+                h.conduit as usize != c && h.clearance_m > 0.01
+            })
+        });
+        if inside_other {
+            if run.len() >= 2 {
+                runs.push(std::mem::take(&mut run));
+            }
+            run.clear();
+        } else {
+            run.push(*p);
+        }
+    }
+    if run.len() >= 2 {
+        runs.push(run);
+    }
+    runs
+}
+
+/// Replay a log through the navigator for a picture: the odometry path,
+/// what the navigator believed (contacts, sections, flow, junctions) and
+/// the time strip; no true walls (a log holds no truth).
+///
+/// # Errors
+/// As [`run_log`].
+pub fn scene_of_log<R: std::io::Read>(
+    input: &str,
+    reader: R,
+    salvage: bool,
+    every: u64,
+) -> Result<(RunSummary, crate::plot::Scene), RunError> {
+    let opts = if salvage {
+        ReadOptions::salvage()
+    } else {
+        ReadOptions::default()
+    };
+    let mut r = LogReader::open(reader, opts).map_err(RunError::Log)?;
+    let header: LogHeader = r.header().clone();
+    let mut nav = AnyNavigator::new(&header.robot, &header.gas)?;
+    let mut scene = crate::plot::Scene {
+        title: format!("{input} (recorded log)"),
+        path_label: "odometry path".to_string(),
+        ..crate::plot::Scene::default()
+    };
+    let mut index = 0u64;
+    let mut last = None;
+    while let Some(rec) = r.next_record().map_err(RunError::Log)? {
+        if let Record::Frame(f) = rec {
+            let cmd = nav
+                .step(&f)
+                .map_err(|reason| RunError::Frame { index, reason })?;
+            if let Some(p) = f.pose {
+                last = Some(p.position_m);
+                if index.is_multiple_of(every.max(1)) {
+                    let failed = cmd.health.failed_ports.count_ones()
+                        + cmd.health.failed_contacts.count_ones();
+                    add_to_scene(&mut scene, p.position_m, &nav, &cmd, failed);
+                }
+            }
+            index += 1;
+        }
+    }
+    scene.junctions = nav.snapshot().junctions;
+    scene.start_m = scene.path.first().copied();
+    if let Some(p) = last {
+        scene.path.push(p);
+    }
+    drop(r);
+    Ok((
+        RunSummary {
+            input: input.to_string(),
+            scenario: header.provenance.get("scenario").cloned(),
+            seed: header.provenance.get("seed").and_then(|s| s.parse().ok()),
+            outcome: "end of log".to_string(),
+            time_span_s: [
+                scene.timeline.first().map_or(f64::NAN, |t| t.time_s),
+                scene.timeline.last().map_or(f64::NAN, |t| t.time_s),
+            ],
+            trace: TraceSink::new(std::io::sink()).finish()?.1,
+            truth: None,
+            faults_seen: Vec::new(),
+            probe_errors: 0,
+            tactile_errors: 0,
+            salvaged: None,
+        },
+        {
+            let mut sc = scene;
+            sc.end = last.map(|p| (p, "end of log".to_string()));
+            sc
+        },
+    ))
 }
 
 /// Replay a log through the navigator, writing the trace.
@@ -917,4 +1075,43 @@ pub fn peak_rss_mb() -> f64 {
             })
         })
         .map_or(f64::NAN, |kb| kb / 1024.0)
+}
+
+#[cfg(test)]
+mod scene_tests {
+    use super::*;
+
+    /// In the top view the walls are the side walls: none runs down a
+    /// centreline (the roof and floor project onto it and belong to the
+    /// side view), and none crosses another conduit's opening.
+    #[test]
+    fn top_view_walls_stay_off_the_centrelines() {
+        let sim = build_sim("demo:saltpetre-drift", None).expect("demo");
+        let mut scene = crate::plot::Scene::default();
+        add_world_to_scene(&sim, &mut scene);
+        assert!(!scene.walls_top.is_empty() && !scene.walls_side.is_empty());
+        let g = &sim.world().geometry;
+        for w in scene.walls_top.iter().flatten() {
+            let clearance = g.clearance_m(*w);
+            assert!(
+                clearance.abs() < 0.02,
+                "a top-view wall point {w:?} is {clearance} m inside the network"
+            );
+        }
+        assert!(
+            scene
+                .nodes
+                .iter()
+                .any(|n| n.role == crate::plot::NodeRole::BlindEnd),
+            "Saltpetre Drift has blind ends"
+        );
+        assert!(
+            scene
+                .nodes
+                .iter()
+                .filter(|n| n.role == crate::plot::NodeRole::Exit)
+                .count()
+                >= 2
+        );
+    }
 }

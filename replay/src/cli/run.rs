@@ -34,7 +34,8 @@ pub struct Args {
     pub max_time: Option<f64>,
 }
 
-fn is_log(path: &str) -> bool {
+/// Whether `path` is a file starting with the log magic.
+pub fn is_log(path: &str) -> bool {
     let mut magic = [0u8; 8];
     std::fs::File::open(path)
         .and_then(|mut f| std::io::Read::read_exact(&mut f, &mut magic))
