@@ -130,16 +130,29 @@ pub fn failures_text(results: &[SeedResult], max_time_s: Option<f64>) -> String 
     }
     let _ = writeln!(o, "failing runs ({}), each rerun by:", failing.len());
     for r in failing {
+        // Say every way the run failed: a run that timed out after
+        // striking the wall thousands of times is listed with its strikes.
+        let mut why: Vec<String> = Vec::new();
+        if !r.reached {
+            why.push(
+                r.failure
+                    .clone()
+                    .unwrap_or_else(|| "not reached".to_string()),
+            );
+        }
+        if r.wall_strikes > 0 {
+            why.push(count(
+                u64::from(r.wall_strikes),
+                "wall strike",
+                "wall strikes",
+            ));
+        }
         let _ = writeln!(
             o,
             "  replay run {} --seed {}{limit}    # {}",
             r.scenario,
             r.seed,
-            r.failure.as_deref().unwrap_or(if r.reached {
-                "wall strike"
-            } else {
-                "not reached"
-            })
+            why.join(", ")
         );
     }
     o
@@ -149,6 +162,41 @@ pub fn failures_text(results: &[SeedResult], max_time_s: Option<f64>) -> String 
 mod tests {
     use super::*;
     use crate::sim::scenario::{Channel, Fault, FaultKind};
+
+    #[test]
+    fn failing_runs_name_every_failure() {
+        let r = |seed, reached, strikes, failure: Option<&str>| SeedResult {
+            job: seed,
+            scenario: "demo:x".into(),
+            seed,
+            reached,
+            time_to_source_s: None,
+            wrong_branches: 0,
+            min_standoff_m: 0.0,
+            wall_strikes: strikes,
+            held_s: 0.0,
+            trace_digest: String::new(),
+            failure: failure.map(str::to_string),
+        };
+        let text = failures_text(
+            &[
+                r(1, false, 2345, Some("time limit")),
+                r(2, true, 1, None),
+                r(3, true, 0, None),
+            ],
+            Some(30.0),
+        );
+        assert!(text.starts_with("failing runs (2)"), "{text}");
+        assert!(
+            text.contains("--seed 1 --max-time 30    # time limit, 2345 wall strikes"),
+            "{text}"
+        );
+        assert!(
+            text.contains("--seed 2 --max-time 30    # 1 wall strike"),
+            "{text}"
+        );
+        assert!(!text.contains("--seed 3"), "{text}");
+    }
 
     #[test]
     fn plurals() {
