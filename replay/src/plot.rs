@@ -659,6 +659,61 @@ pub fn render_svg(scene: &Scene) -> String {
     out
 }
 
+/// A scene from a decision trace (JSON Lines, as `replay run` writes): a
+/// trace holds what the robot decided, not where it was, so the picture is
+/// the time strip (speed, dynamic pressure, standoff, mode, reason, failed
+/// ports and sensors), one sample every `every` steps.
+///
+/// # Errors
+/// A line that is not a trace line, named by its 1-based number.
+pub fn scene_of_trace<R: std::io::BufRead>(
+    reader: R,
+    name: &str,
+    every: usize,
+) -> Result<Scene, String> {
+    let mut scene = Scene {
+        title: format!("{name} (decision trace)"),
+        ..Scene::default()
+    };
+    for (i, line) in reader.lines().enumerate() {
+        let line = line.map_err(|e| format!("{name}:{}: {e}", i + 1))?;
+        if line.trim().is_empty() || i % every.max(1) != 0 {
+            continue;
+        }
+        let v: serde_json::Value =
+            serde_json::from_str(&line).map_err(|e| format!("{name}:{}: not JSON: {e}", i + 1))?;
+        let c = &v["command"];
+        let num = |x: &serde_json::Value| x.as_f64();
+        let (Some(time_s), Some(speed)) = (num(&c["time_s"]), num(&c["speed_m_per_s"])) else {
+            return Err(format!(
+                "{name}:{}: not a decision trace line (no command.time_s or speed_m_per_s)",
+                i + 1
+            ));
+        };
+        let failed = c["health"]["failed_ports"]
+            .as_u64()
+            .unwrap_or(0)
+            .count_ones()
+            + c["health"]["failed_contacts"]
+                .as_u64()
+                .unwrap_or(0)
+                .count_ones();
+        scene.timeline.push(TimeSample {
+            time_s,
+            speed_m_per_s: speed,
+            dynamic_pressure_pa: num(&c["record"]["dynamic_pressure_pa"]).unwrap_or(f64::NAN),
+            standoff_m: num(&c["record"]["standoff_m"]),
+            mode: c["mode"].as_str().unwrap_or("?").to_string(),
+            reason: c["record"]["reason"].as_str().unwrap_or("?").to_string(),
+            faults_active: failed,
+        });
+    }
+    if scene.timeline.is_empty() {
+        return Err(format!("{name}: no trace lines"));
+    }
+    Ok(scene)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

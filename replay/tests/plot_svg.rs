@@ -187,3 +187,18 @@ fn log_plot_draws_the_odometry_path_without_true_walls() {
     assert!(count(&els, "rect", "band") >= 2, "mode and reason bands");
     assert_eq!(count(&els, "path", "end"), 2, "end of log marked");
 }
+
+#[test]
+fn trace_plot_is_its_time_strip() {
+    let (stdout, els) = plot(
+        "../fixtures/golden/wrens-3-10s.jsonl",
+        "wrens-trace.svg",
+        &[],
+    );
+    assert!(stdout.contains("steps drawn as a time strip"), "{stdout}");
+    check_inside_view_box(&els);
+    assert!(count(&els, "polyline", "series") >= 2, "speed and q drawn");
+    assert!(count(&els, "rect", "band") >= 2, "mode and reason bands");
+    let titles = els.iter().filter(|e| e.name == "title").count();
+    assert!(titles >= 2, "bands carry their names");
+}

@@ -10,7 +10,8 @@ use std::process::ExitCode;
 /// navigator (odometry path, what it felt and decided; no true walls).
 #[derive(Debug, clap::Args)]
 pub struct Args {
-    /// A scenario file, `demo:<name>`, or a log file.
+    /// A scenario file, `demo:<name>`, a log file, or a decision trace
+    /// (`.jsonl`: drawn as its time strip).
     pub input: String,
     /// Seed (default: the scenario's own; refused for a log).
     #[arg(long)]
@@ -38,6 +39,22 @@ pub struct Args {
 /// it, an SVG that cannot be written.
 pub fn exec(a: Args, out: &mut Out) -> Result<ExitCode, String> {
     let input = &a.input;
+    if input.ends_with(".jsonl") {
+        if a.seed.is_some() || a.max_time.is_some() || a.salvage {
+            return Err(format!(
+                "{input} is a decision trace: --seed, --max-time and --salvage have no effect on it"
+            ));
+        }
+        let f = std::fs::File::open(input).map_err(|e| format!("{input}: {e}"))?;
+        let scene = replay::plot::scene_of_trace(std::io::BufReader::new(f), input, 25)?;
+        write_file(&a.out, replay::plot::render_svg(&scene).as_bytes())?;
+        out.line(format_args!(
+            "{input}: {} steps drawn as a time strip; wrote {}",
+            scene.timeline.len(),
+            a.out.display()
+        ));
+        return Ok(ExitCode::SUCCESS);
+    }
     let (summary, scene) = if super::run::is_log(input) {
         if a.seed.is_some() || a.max_time.is_some() {
             return Err(format!(
