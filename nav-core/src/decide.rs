@@ -412,6 +412,11 @@ pub enum ReasonCode {
     GaveUp,
     /// Arrived: a wall across the path, and the flow comes out of it.
     HoldAtSource,
+    /// Holding while the operating mode settles: the channels no longer
+    /// call for a hold (at start-up, or after both recovered), but the mode
+    /// waits out its recovery dwell before it moves. (Last, so the codes
+    /// before it keep their numbers in digests.)
+    HoldModeSettling,
 }
 
 /// What capped the speed.
@@ -1032,7 +1037,13 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     rec.nearest_wall_m = cl.nearest_wall_m;
 
     if health.mode == OperatingMode::Hold {
-        return hold(rec, ReasonCode::HoldChannelsUnhealthy, next);
+        let f = &health.flags;
+        let reason = if crate::health::mode_for(f.flow, f.tactile) == OperatingMode::Hold {
+            ReasonCode::HoldChannelsUnhealthy
+        } else {
+            ReasonCode::HoldModeSettling
+        };
+        return hold(rec, reason, next);
     }
     if matches!(state.phase, Phase::GaveUp) {
         return hold(rec, ReasonCode::GaveUp, next);

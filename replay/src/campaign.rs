@@ -7,7 +7,8 @@
 //!
 //! Sharding: `--shard i/n` keeps the jobs whose index is `i` modulo `n`
 //! (0-based), so `n` array-job tasks of a cluster scheduler cover the
-//! campaign exactly once between them. Each shard writes a results file;
+//! campaign exactly once between them; `--shard env` takes `i` and `n`
+//! from the scheduler's array-job variables ([`Shard::from_env`]). Each shard writes a results file;
 //! [`merge`] combines shard files, checks that they describe the same
 //! campaign, that no job is missing or repeated, and yields exactly the
 //! results a single unsharded run gives.
@@ -129,6 +130,77 @@ impl Shard {
             ));
         }
         Ok(Self { index, count })
+    }
+
+    /// The shard of this process in a batch scheduler's array job, read
+    /// through `var` (the process environment in use: `|k|
+    /// std::env::var(k).ok()`). Returns the shard and where it came from.
+    ///
+    /// - Slurm job arrays (`sbatch --array=0-15`): `SLURM_ARRAY_TASK_ID`
+    ///   and `SLURM_ARRAY_TASK_COUNT`, with `SLURM_ARRAY_TASK_MIN` and
+    ///   `SLURM_ARRAY_TASK_STEP` when set, so `--array=1-16` works too (the
+    ///   variables of the sbatch(1) manual, "OUTPUT ENVIRONMENT
+    ///   VARIABLES"; names recalled from memory). The array must be one
+    ///   evenly stepped range.
+    /// - Kubernetes Jobs with `completionMode: Indexed`: the control plane
+    ///   sets `JOB_COMPLETION_INDEX` (0-based; Kubernetes documentation,
+    ///   "Indexed Job for Parallel Processing with Static Work
+    ///   Assignment"); it does not publish `spec.completions`, so the job
+    ///   file sets `UPCURRENT_SHARD_COUNT` to the same number.
+    ///
+    /// # Errors
+    /// No scheduler's variables, a value that is not a whole number, or an
+    /// index outside the count.
+    pub fn from_env(var: impl Fn(&str) -> Option<String>) -> Result<(Self, &'static str), String> {
+        let num = |k: &str| -> Result<Option<u64>, String> {
+            var(k)
+                .map(|v| {
+                    v.trim()
+                        .parse::<u64>()
+                        .map_err(|_| format!("{k}={v}: not a whole number"))
+                })
+                .transpose()
+        };
+        let shard = |index: u64, count: u64, from: &'static str| {
+            if count == 0 || index >= count {
+                Err(format!(
+                    "{from}: shard index {index} is not below the count {count}"
+                ))
+            } else {
+                Ok((Self { index, count }, from))
+            }
+        };
+        if let Some(id) = num("SLURM_ARRAY_TASK_ID")? {
+            let from = "Slurm job array";
+            let count = num("SLURM_ARRAY_TASK_COUNT")?
+                .ok_or("SLURM_ARRAY_TASK_ID is set but SLURM_ARRAY_TASK_COUNT is not")?;
+            let min = num("SLURM_ARRAY_TASK_MIN")?.unwrap_or(0);
+            let step = num("SLURM_ARRAY_TASK_STEP")?.unwrap_or(1).max(1);
+            if let Some(max) = num("SLURM_ARRAY_TASK_MAX")?
+                && max.checked_sub(min).map(|span| span / step + 1) != Some(count)
+            {
+                return Err(format!(
+                    "{from}: tasks {min}-{max} step {step} are not {count} evenly stepped tasks; \
+                     submit one range such as --array=0-{}",
+                    count.saturating_sub(1)
+                ));
+            }
+            let offset = id
+                .checked_sub(min)
+                .filter(|o| o % step == 0)
+                .ok_or_else(|| {
+                    format!("{from}: task {id} is not in the array from {min} step {step}")
+                })?;
+            return shard(offset / step, count, from);
+        }
+        if let Some(index) = num("JOB_COMPLETION_INDEX")? {
+            let from = "Kubernetes indexed job";
+            let count = num("UPCURRENT_SHARD_COUNT")?.ok_or(
+                "JOB_COMPLETION_INDEX is set but UPCURRENT_SHARD_COUNT is not (set it to the job's spec.completions)",
+            )?;
+            return shard(index, count, from);
+        }
+        Err("no array-job variables found: SLURM_ARRAY_TASK_ID (Slurm) or JOB_COMPLETION_INDEX (Kubernetes)".to_string())
     }
 
     fn keeps(self, job: u64) -> bool {
@@ -417,6 +489,17 @@ pub fn summarise(plan: &CampaignPlan, results: &[SeedResult]) -> Vec<ScenarioSum
         .collect()
 }
 
+/// The scenarios whose success rate is below `min_success` (a fraction in
+/// [0, 1]), each with its rate, in plan order.
+#[must_use]
+pub fn below_success(summaries: &[ScenarioSummary], min_success: f64) -> Vec<(String, f64)> {
+    summaries
+        .iter()
+        .filter(|s| s.success_rate < min_success)
+        .map(|s| (s.scenario.clone(), s.success_rate))
+        .collect()
+}
+
 /// The summary as a plain-text table.
 #[must_use]
 pub fn format_table(summaries: &[ScenarioSummary]) -> String {
@@ -570,6 +653,92 @@ mod tests {
         assert!(Shard::parse("3").is_err());
     }
 
+    fn env(pairs: &[(&str, &str)]) -> impl Fn(&str) -> Option<String> {
+        let owned: Vec<(String, String)> = pairs
+            .iter()
+            .map(|(k, v)| ((*k).to_string(), (*v).to_string()))
+            .collect();
+        move |k| owned.iter().find(|(n, _)| n == k).map(|(_, v)| v.clone())
+    }
+
+    #[test]
+    fn shard_from_scheduler_variables() {
+        let s = |pairs: &[(&str, &str)]| Shard::from_env(env(pairs));
+        // sbatch --array=0-15, task 3.
+        assert_eq!(
+            s(&[
+                ("SLURM_ARRAY_TASK_ID", "3"),
+                ("SLURM_ARRAY_TASK_COUNT", "16")
+            ])
+            .unwrap(),
+            (
+                Shard {
+                    index: 3,
+                    count: 16
+                },
+                "Slurm job array"
+            )
+        );
+        // sbatch --array=1-16, task 16 is the last shard.
+        let one_based = [
+            ("SLURM_ARRAY_TASK_ID", "16"),
+            ("SLURM_ARRAY_TASK_COUNT", "16"),
+            ("SLURM_ARRAY_TASK_MIN", "1"),
+            ("SLURM_ARRAY_TASK_MAX", "16"),
+        ];
+        assert_eq!(
+            s(&one_based).unwrap().0,
+            Shard {
+                index: 15,
+                count: 16
+            }
+        );
+        // sbatch --array=10-40:10: tasks 10, 20, 30, 40.
+        let stepped = [
+            ("SLURM_ARRAY_TASK_ID", "30"),
+            ("SLURM_ARRAY_TASK_COUNT", "4"),
+            ("SLURM_ARRAY_TASK_MIN", "10"),
+            ("SLURM_ARRAY_TASK_MAX", "40"),
+            ("SLURM_ARRAY_TASK_STEP", "10"),
+        ];
+        assert_eq!(s(&stepped).unwrap().0, Shard { index: 2, count: 4 });
+        // sbatch --array=1,3,8: not one evenly stepped range.
+        let e = s(&[
+            ("SLURM_ARRAY_TASK_ID", "3"),
+            ("SLURM_ARRAY_TASK_COUNT", "3"),
+            ("SLURM_ARRAY_TASK_MIN", "1"),
+            ("SLURM_ARRAY_TASK_MAX", "8"),
+        ])
+        .unwrap_err();
+        assert!(e.contains("evenly stepped"), "{e}");
+        assert!(s(&[("SLURM_ARRAY_TASK_ID", "3")]).is_err());
+        assert!(
+            s(&[
+                ("SLURM_ARRAY_TASK_ID", "x"),
+                ("SLURM_ARRAY_TASK_COUNT", "4")
+            ])
+            .is_err()
+        );
+        // A Kubernetes indexed job with completions: 8.
+        assert_eq!(
+            s(&[
+                ("JOB_COMPLETION_INDEX", "7"),
+                ("UPCURRENT_SHARD_COUNT", "8")
+            ])
+            .unwrap(),
+            (Shard { index: 7, count: 8 }, "Kubernetes indexed job")
+        );
+        assert!(
+            s(&[
+                ("JOB_COMPLETION_INDEX", "8"),
+                ("UPCURRENT_SHARD_COUNT", "8")
+            ])
+            .is_err()
+        );
+        assert!(s(&[("JOB_COMPLETION_INDEX", "0")]).is_err());
+        assert!(s(&[]).is_err());
+    }
+
     #[test]
     fn nearest_rank_percentiles() {
         // Nearest-rank definition (e.g. NIST/SEMATECH e-Handbook's list of
@@ -595,5 +764,9 @@ mod tests {
         // Multiples of 5: 10 and 15.
         assert!((s[0].wrong_branch_rate - 2.0 / 7.0).abs() < 1e-12);
         assert!(format_table(&s).contains("71.4%"));
+        assert_eq!(below_success(&s, 0.7), vec![]);
+        let low = below_success(&s, 0.75);
+        assert_eq!(low.len(), 2, "{low:?}");
+        assert_eq!(low[0].0, "a");
     }
 }

@@ -808,6 +808,13 @@ pub struct ImportSummary {
     pub last_time_s: Option<f64>,
     /// Log size, bytes.
     pub bytes: u64,
+    /// Cells holding NaN (kept as values; `inspect` counts them).
+    pub nan_cells: u64,
+    /// Cells holding an infinite value (kept as values, like NaN).
+    pub infinite_cells: u64,
+    /// Where the first NaN or infinite cell is: CSV line (1-based) and
+    /// column name.
+    pub first_non_finite: Option<(u64, String)>,
 }
 
 /// A mapped column bound to its position in the CSV.
@@ -822,6 +829,9 @@ struct Row<'a> {
     fields: &'a [String],
     line: u64,
     row: u64,
+    /// NaN and infinite cells read so far in this row, and the first
+    /// column (0-based) holding one.
+    non_finite: std::cell::Cell<(u64, u64, Option<usize>)>,
 }
 
 impl Row<'_> {
@@ -845,9 +855,18 @@ impl Row<'_> {
         if s.is_empty() {
             return Ok(None);
         }
-        s.parse::<f64>()
-            .map(Some)
-            .map_err(|_| self.err(b, format!("\"{s}\" is not a number")))
+        let v = s
+            .parse::<f64>()
+            .map_err(|_| self.err(b, format!("\"{s}\" is not a number")))?;
+        if !v.is_finite() {
+            let (nan, inf, first) = self.non_finite.get();
+            self.non_finite.set((
+                nan + u64::from(v.is_nan()),
+                inf + u64::from(v.is_infinite()),
+                first.or(Some(b.idx)),
+            ));
+        }
+        Ok(Some(v))
     }
 
     fn index(&self, b: Bound) -> Result<Option<u16>, ImportError> {
@@ -921,7 +940,8 @@ pub fn import_csv<R: BufRead, W: Write>(
     };
     let mut names = Vec::new();
     let Some(header_line) = reader.next(0, true, &mut names)? else {
-        return Err(reader.err(0, 0, "no header row".to_owned()));
+        // Lines count from 1: an empty file fails at its first line.
+        return Err(reader.err(reader.line.max(1), 0, "no header row".to_owned()));
     };
     for n in &mut names {
         *n = n.trim().to_owned();
@@ -1008,6 +1028,9 @@ pub fn import_csv<R: BufRead, W: Write>(
         first_time_s: None,
         last_time_s: None,
         bytes: 0,
+        nan_cells: 0,
+        infinite_cells: 0,
+        first_non_finite: None,
     };
     let mut fields = Vec::new();
     loop {
@@ -1029,6 +1052,7 @@ pub fn import_csv<R: BufRead, W: Write>(
             fields: &fields,
             line,
             row: row_no,
+            non_finite: std::cell::Cell::new((0, 0, None)),
         };
         let raw_t = row
             .num(time)?
@@ -1159,11 +1183,28 @@ pub fn import_csv<R: BufRead, W: Write>(
                 sum.notes += 1;
             }
         }
+        let (nan, inf, first) = row.non_finite.get();
+        sum.nan_cells += nan;
+        sum.infinite_cells += inf;
+        if sum.first_non_finite.is_none()
+            && let Some(c) = first
+        {
+            sum.first_non_finite = Some((line, names.get(c).cloned().unwrap_or_default()));
+        }
         sum.contacts += frame.contacts.len() as u64;
         sum.first_time_s.get_or_insert(time_s);
         sum.last_time_s = Some(time_s);
         w.write_frame(&frame)?;
         sum.frames += 1;
+    }
+    if sum.rows == 0 {
+        return Err(ImportError::Csv {
+            file: csv_name.to_owned(),
+            line: header_line,
+            row: 0,
+            column: None,
+            message: "a header and no data rows: nothing to import".to_owned(),
+        });
     }
     let counted = w.finish("imported")?;
     sum.bytes = counted.bytes;
@@ -1186,12 +1227,18 @@ pub fn import_files(csv: &Path, map: &Path, out: &Path) -> Result<ImportSummary,
         file: out_name.clone(),
         source,
     })?;
-    import_csv(
+    let result = import_csv(
         std::io::BufReader::new(input),
         &csv_name,
         &mapping,
         std::io::BufWriter::new(file),
-    )
+    );
+    if result.is_err() {
+        // A log cut short by the error is no import: leave no file behind
+        // that looks like one.
+        let _ = std::fs::remove_file(out);
+    }
+    result
 }
 
 #[cfg(test)]
@@ -1402,5 +1449,35 @@ mod tests {
             }
             other => panic!("{other}"),
         }
+    }
+
+    #[test]
+    fn infinite_cells_are_flagged_like_nan() {
+        let (csv, map) = (fixture("demo_rig.csv"), fixture("demo_rig.toml"));
+        let (clean, _) = import(&csv, &map).unwrap();
+        assert_eq!((clean.nan_cells, clean.infinite_cells), (0, 0));
+        assert_eq!(clean.first_non_finite, None);
+        let bad = csv
+            .replacen("70,101.379", "70,inf", 1)
+            .replacen("101.375", "NaN", 1);
+        let first = line_with(&bad, "NaN");
+        let (sum, bytes) = import(&bad, &map).unwrap();
+        assert_eq!((sum.nan_cells, sum.infinite_cells), (1, 1));
+        assert_eq!(sum.first_non_finite.as_ref().map(|f| f.0), Some(first));
+        let rep = inspect(bytes.as_slice(), ReadOptions::default()).unwrap();
+        assert_eq!(rep.health.infinite_values, 1);
+    }
+
+    #[test]
+    fn a_header_only_csv_is_an_error() {
+        let (csv, map) = (fixture("demo_rig.csv"), fixture("demo_rig.toml"));
+        let header_only: String = csv
+            .lines()
+            .take_while(|l| l.starts_with('#'))
+            .chain(csv.lines().find(|l| !l.starts_with('#')))
+            .map(|l| format!("{l}\n"))
+            .collect();
+        let e = import(&header_only, &map).unwrap_err().to_string();
+        assert!(e.contains("no data rows"), "{e}");
     }
 }

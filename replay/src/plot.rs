@@ -45,13 +45,66 @@ pub struct FlowArrow {
     pub strength: f64,
 }
 
+/// What a labelled network node is.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum NodeRole {
+    /// A flow source.
+    Source,
+    /// An exit to ambient.
+    Exit,
+    /// A junction only one conduit meets: a blind end.
+    BlindEnd,
+}
+
+/// A labelled node of the true network.
+#[derive(Debug, Clone, PartialEq)]
+pub struct NodeMark {
+    /// Position, map frame, m.
+    pub position_m: [f64; 3],
+    /// What it is.
+    pub role: NodeRole,
+    /// Its id in the scenario.
+    pub label: String,
+}
+
+/// One moment of the time strip.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TimeSample {
+    /// Time, s.
+    pub time_s: f64,
+    /// Commanded speed, m/s.
+    pub speed_m_per_s: f64,
+    /// Fused dynamic pressure, Pa.
+    pub dynamic_pressure_pa: f64,
+    /// Estimated standoff (skin to wall), m, when known.
+    pub standoff_m: Option<f64>,
+    /// Operating mode name.
+    pub mode: String,
+    /// Reason code name.
+    pub reason: String,
+    /// Faults active (scenario faults, or failed ports and sensors).
+    pub faults_active: u32,
+}
+
 /// Everything a picture shows.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Scene {
     /// Title line.
     pub title: String,
-    /// True walls where known: each a polyline in the map frame.
-    pub true_walls: Vec<Vec<[f64; 3]>>,
+    /// True side walls (horizontal offsets from the centreline), for the
+    /// top view: each a polyline, map frame; broken where another conduit
+    /// opens into this one.
+    pub walls_top: Vec<Vec<[f64; 3]>>,
+    /// True roof and floor (vertical offsets), for the side view.
+    pub walls_side: Vec<Vec<[f64; 3]>>,
+    /// Labelled nodes: sources, exits, blind ends.
+    pub nodes: Vec<NodeMark>,
+    /// What the path is (`true path`, `odometry path`).
+    pub path_label: String,
+    /// Where the run ended and how.
+    pub end: Option<([f64; 3], String)>,
+    /// The time strip.
+    pub timeline: Vec<TimeSample>,
     /// True conduit centrelines, for orientation.
     pub centrelines: Vec<Vec<[f64; 3]>>,
     /// The head's path.
@@ -109,7 +162,9 @@ fn bounds(scene: &Scene) -> ([f64; 3], [f64; 3]) {
             }
         }
     };
-    scene.true_walls.iter().flatten().for_each(&mut add);
+    scene.walls_top.iter().flatten().for_each(&mut add);
+    scene.walls_side.iter().flatten().for_each(&mut add);
+    scene.nodes.iter().for_each(|n| add(&n.position_m));
     scene.centrelines.iter().flatten().for_each(&mut add);
     scene.path.iter().for_each(&mut add);
     scene.contacts.iter().for_each(&mut add);
@@ -241,7 +296,11 @@ fn draw_panel(out: &mut String, scene: &Scene, panel: &Panel) {
             "stroke=\"#c9c9c9\" stroke-width=\"1\" stroke-dasharray=\"4 3\"",
         );
     }
-    for w in &scene.true_walls {
+    let walls = match panel.view {
+        View::Top => &scene.walls_top,
+        View::Side => &scene.walls_side,
+    };
+    for w in walls {
         polyline(out, panel, w, "stroke=\"#6b5b45\" stroke-width=\"1.5\"");
     }
     for s in &scene.sections {
@@ -281,12 +340,6 @@ fn draw_panel(out: &mut String, scene: &Scene, panel: &Panel) {
             "<circle cx=\"{x:.1}\" cy=\"{y:.1}\" r=\"1.4\" fill=\"#d08c1f\"/>"
         );
     }
-    polyline(
-        out,
-        panel,
-        &scene.path,
-        "stroke=\"#c0392b\" stroke-width=\"2\"",
-    );
     let arrow_len = 18.0 / panel.scale;
     for f in &scene.flow {
         arrow(
@@ -320,6 +373,30 @@ fn draw_panel(out: &mut String, scene: &Scene, panel: &Panel) {
             );
         }
     }
+    for n in &scene.nodes {
+        let (x, y) = panel.to_px(n.position_m);
+        let (colour, what) = match n.role {
+            NodeRole::Source => ("#b8860b", "source"),
+            NodeRole::Exit => ("#1f7a8c", "exit"),
+            NodeRole::BlindEnd => ("#7f7f7f", "blind end"),
+        };
+        let _ = writeln!(
+            out,
+            "<rect class=\"node\" x=\"{:.1}\" y=\"{:.1}\" width=\"7\" height=\"7\" fill=\"{colour}\"/><text x=\"{:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"9\" fill=\"{colour}\">{what} {}</text>",
+            x - 3.5,
+            y - 3.5,
+            x + 6.0,
+            y + 12.0,
+            esc(&n.label)
+        );
+    }
+    // The path goes above everything else, so nothing hides it.
+    polyline(
+        out,
+        panel,
+        &scene.path,
+        "class=\"path\" stroke=\"#c0392b\" stroke-width=\"2\"",
+    );
     let mut mark = |p: Option<[f64; 3]>, label: &str, colour: &str| {
         if let Some(p) = p {
             let (x, y) = panel.to_px(p);
@@ -333,6 +410,174 @@ fn draw_panel(out: &mut String, scene: &Scene, panel: &Panel) {
     };
     mark(scene.start_m, "start", "#1f4e79");
     mark(scene.source_m, "source", "#b8860b");
+    if let Some((p, outcome)) = &scene.end {
+        let (x, y) = panel.to_px(*p);
+        let _ = writeln!(
+            out,
+            "<path class=\"end\" d=\"M{:.1},{:.1} l8,8 M{:.1},{:.1} l-8,8\" stroke=\"#111\" stroke-width=\"2\"/><text x=\"{:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"11\" fill=\"#111\">end: {}</text>",
+            x - 4.0,
+            y - 4.0,
+            x + 4.0,
+            y - 4.0,
+            x + 8.0,
+            y + 14.0,
+            esc(outcome)
+        );
+    }
+}
+
+const STRIP_H: f64 = 44.0;
+const BAND_H: f64 = 12.0;
+
+/// A stable colour for a name (mode or reason), from a small palette.
+fn colour_of(name: &str) -> &'static str {
+    const PALETTE: [&str; 10] = [
+        "#4e79a7", "#f28e2b", "#e15759", "#76b7b2", "#59a14f", "#edc948", "#b07aa1", "#ff9da7",
+        "#9c755f", "#bab0ac",
+    ];
+    let h = name.bytes().fold(0usize, |h, b| {
+        h.wrapping_mul(31).wrapping_add(usize::from(b))
+    });
+    PALETTE[h % PALETTE.len()]
+}
+
+/// The time strip: one line plot per quantity, then bands for mode,
+/// reason and faults, over one shared time axis. Returns its height.
+fn draw_timeline(out: &mut String, scene: &Scene, x0: f64, y0: f64, w: f64) -> f64 {
+    let t = &scene.timeline;
+    let (Some(first), Some(last)) = (t.first(), t.last()) else {
+        return 0.0;
+    };
+    let (t0, t1) = (first.time_s, last.time_s.max(first.time_s + 1e-9));
+    let left = x0 + 130.0;
+    let plot_w = w - 140.0;
+    let tx = |time: f64| left + (time - t0) / (t1 - t0) * plot_w;
+    let mut y = y0;
+    let _ = writeln!(
+        out,
+        "<text x=\"{x0:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"12\" fill=\"#333\">time strip, {t0:.1} s to {t1:.1} s</text>",
+        y + 12.0
+    );
+    y += 18.0;
+    type Series = (&'static str, &'static str, fn(&TimeSample) -> Option<f64>);
+    let series: [Series; 3] = [
+        ("speed", "m/s", |s| Some(s.speed_m_per_s)),
+        ("dynamic pressure", "Pa", |s| Some(s.dynamic_pressure_pa)),
+        ("standoff", "m", |s| s.standoff_m),
+    ];
+    for (name, unit, get) in series {
+        let vals: Vec<(f64, f64)> = t
+            .iter()
+            .filter_map(|s| get(s).filter(|v| v.is_finite()).map(|v| (s.time_s, v)))
+            .collect();
+        let hi = vals.iter().map(|v| v.1).fold(0.0_f64, f64::max);
+        let lo = vals.iter().map(|v| v.1).fold(0.0_f64, f64::min);
+        let span = (hi - lo).max(1e-12);
+        let _ = writeln!(
+            out,
+            "<rect x=\"{left:.1}\" y=\"{y:.1}\" width=\"{plot_w:.1}\" height=\"{STRIP_H}\" fill=\"#fbfbf8\" stroke=\"#ccc\"/><text x=\"{x0:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"10\" fill=\"#333\">{name}, {unit} (0 to {:.3})</text>",
+            y + STRIP_H / 2.0 + 3.0,
+            hi
+        );
+        if vals.len() >= 2 {
+            let _ = write!(
+                out,
+                "<polyline class=\"series\" fill=\"none\" stroke=\"#333\" stroke-width=\"1\" points=\""
+            );
+            for (time, v) in &vals {
+                let py = y + STRIP_H - (v - lo) / span * (STRIP_H - 4.0) - 2.0;
+                let _ = write!(out, "{:.1},{py:.1} ", tx(*time));
+            }
+            out.push_str("\"/>\n");
+        } else {
+            let _ = writeln!(
+                out,
+                "<text class=\"no-data\" x=\"{:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"10\" fill=\"#777\">not known in this run</text>",
+                left + 8.0,
+                y + STRIP_H / 2.0 + 3.0
+            );
+        }
+        y += STRIP_H + 6.0;
+    }
+    type Band = (&'static str, fn(&TimeSample) -> Option<String>);
+    let bands: [Band; 3] = [
+        ("mode", |s| Some(s.mode.clone())),
+        ("reason", |s| Some(s.reason.clone())),
+        ("faults active", |s| {
+            (s.faults_active > 0).then(|| format!("{} active", s.faults_active))
+        }),
+    ];
+    for (name, get) in bands {
+        let _ = writeln!(
+            out,
+            "<text x=\"{x0:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"10\" fill=\"#333\">{name}</text>",
+            y + BAND_H - 2.0
+        );
+        let mut k = 0;
+        let mut names: Vec<String> = Vec::new();
+        while k < t.len() {
+            let v = get(&t[k]);
+            let mut e = k + 1;
+            while e < t.len() && get(&t[e]) == v {
+                e += 1;
+            }
+            if let Some(v) = v {
+                let xa = tx(t[k].time_s);
+                let xb = tx(t.get(e).map_or(t1, |s| s.time_s));
+                let colour = if name == "faults active" {
+                    "#c0392b"
+                } else {
+                    colour_of(&v)
+                };
+                let _ = writeln!(
+                    out,
+                    "<rect class=\"band\" x=\"{xa:.1}\" y=\"{y:.1}\" width=\"{:.1}\" height=\"{BAND_H}\" fill=\"{colour}\"><title>{}</title></rect>",
+                    (xb - xa).max(0.5),
+                    esc(&v)
+                );
+                if !names.contains(&v) {
+                    names.push(v);
+                }
+            }
+            k = e;
+        }
+        if name != "faults active" {
+            // A key under the band: each name in its colour.
+            let mut kx = left;
+            y += BAND_H + 2.0;
+            for n in names.iter().take(8) {
+                let _ = writeln!(
+                    out,
+                    "<rect x=\"{kx:.1}\" y=\"{y:.1}\" width=\"8\" height=\"8\" fill=\"{}\"/><text x=\"{:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"9\" fill=\"#333\">{}</text>",
+                    colour_of(n),
+                    kx + 10.0,
+                    y + 7.5,
+                    esc(n)
+                );
+                kx += 18.0 + 5.2 * n.len() as f64;
+            }
+            y += 10.0;
+        } else {
+            y += BAND_H;
+        }
+        y += 4.0;
+    }
+    // Time axis ticks.
+    let step = [0.5, 1.0, 2.0, 5.0, 10.0, 20.0, 50.0, 100.0, 200.0, 500.0]
+        .into_iter()
+        .find(|s| (t1 - t0) / s <= 10.0)
+        .unwrap_or(1000.0);
+    let mut tick = libm::ceil(t0 / step) * step;
+    while tick <= t1 {
+        let x = tx(tick);
+        let _ = writeln!(
+            out,
+            "<text x=\"{x:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"9\" fill=\"#555\" text-anchor=\"middle\">{tick} s</text>",
+            y + 10.0
+        );
+        tick += step;
+    }
+    y + 14.0 - y0
 }
 
 /// Render the scene as a standalone SVG document.
@@ -347,8 +592,12 @@ pub fn render_svg(scene: &Scene) -> String {
     let sz = inner_h / (hi[2] - lo[2]);
     let scale = sx.min(sy).min(sz);
     let width = PANEL_W * 2.0 + 30.0;
-    let height = PANEL_H + LEGEND_H + 30.0;
-    let mut out = String::with_capacity(64 * 1024);
+    // Measure the time strip by drawing it once into a scratch buffer.
+    let strip_y = 30.0 + PANEL_H + LEGEND_H;
+    let mut strip = String::new();
+    let strip_h = draw_timeline(&mut strip, scene, 14.0, strip_y, width - 28.0);
+    let height = PANEL_H + LEGEND_H + 30.0 + strip_h;
+    let mut out = String::with_capacity(64 * 1024 + strip.len());
     let _ = writeln!(
         out,
         "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"{width}\" height=\"{height}\" viewBox=\"0 0 {width} {height}\">"
@@ -380,9 +629,14 @@ pub fn render_svg(scene: &Scene) -> String {
     draw_panel(&mut out, scene, &side);
     // Legend.
     let ly = 30.0 + PANEL_H + 22.0;
+    let path_label = if scene.path_label.is_empty() {
+        "path"
+    } else {
+        scene.path_label.as_str()
+    };
     let items = [
         ("#6b5b45", "true wall"),
-        ("#c0392b", "path"),
+        ("#c0392b", path_label),
         ("#3a7bd5", "estimated cross-section"),
         ("#2e8b57", "fused flow (downstream)"),
         ("#d08c1f", "contact"),
@@ -400,8 +654,64 @@ pub fn render_svg(scene: &Scene) -> String {
         );
         x += 26.0 + 6.2 * label.len() as f64;
     }
+    out.push_str(&strip);
     out.push_str("</svg>\n");
     out
+}
+
+/// A scene from a decision trace (JSON Lines, as `replay run` writes): a
+/// trace holds what the robot decided, not where it was, so the picture is
+/// the time strip (speed, dynamic pressure, standoff, mode, reason, failed
+/// ports and sensors), one sample every `every` steps.
+///
+/// # Errors
+/// A line that is not a trace line, named by its 1-based number.
+pub fn scene_of_trace<R: std::io::BufRead>(
+    reader: R,
+    name: &str,
+    every: usize,
+) -> Result<Scene, String> {
+    let mut scene = Scene {
+        title: format!("{name} (decision trace)"),
+        ..Scene::default()
+    };
+    for (i, line) in reader.lines().enumerate() {
+        let line = line.map_err(|e| format!("{name}:{}: {e}", i + 1))?;
+        if line.trim().is_empty() || i % every.max(1) != 0 {
+            continue;
+        }
+        let v: serde_json::Value =
+            serde_json::from_str(&line).map_err(|e| format!("{name}:{}: not JSON: {e}", i + 1))?;
+        let c = &v["command"];
+        let num = |x: &serde_json::Value| x.as_f64();
+        let (Some(time_s), Some(speed)) = (num(&c["time_s"]), num(&c["speed_m_per_s"])) else {
+            return Err(format!(
+                "{name}:{}: not a decision trace line (no command.time_s or speed_m_per_s)",
+                i + 1
+            ));
+        };
+        let failed = c["health"]["failed_ports"]
+            .as_u64()
+            .unwrap_or(0)
+            .count_ones()
+            + c["health"]["failed_contacts"]
+                .as_u64()
+                .unwrap_or(0)
+                .count_ones();
+        scene.timeline.push(TimeSample {
+            time_s,
+            speed_m_per_s: speed,
+            dynamic_pressure_pa: num(&c["record"]["dynamic_pressure_pa"]).unwrap_or(f64::NAN),
+            standoff_m: num(&c["record"]["standoff_m"]),
+            mode: c["mode"].as_str().unwrap_or("?").to_string(),
+            reason: c["record"]["reason"].as_str().unwrap_or("?").to_string(),
+            faults_active: failed,
+        });
+    }
+    if scene.timeline.is_empty() {
+        return Err(format!("{name}: no trace lines"));
+    }
+    Ok(scene)
 }
 
 #[cfg(test)]
@@ -411,7 +721,31 @@ mod tests {
     fn scene() -> Scene {
         Scene {
             title: "test <&> scene".into(),
-            true_walls: vec![vec![[0.0, 1.0, 0.0], [10.0, 1.0, 0.0]]],
+            walls_top: vec![vec![[0.0, 1.0, 0.0], [10.0, 1.0, 0.0]]],
+            walls_side: vec![vec![[0.0, 0.0, 1.0], [10.0, 0.0, 1.0]]],
+            nodes: vec![NodeMark {
+                position_m: [10.0, 0.0, 0.0],
+                role: NodeRole::Source,
+                label: "vent".into(),
+            }],
+            path_label: "true path".into(),
+            end: Some(([9.0, 0.0, 0.0], "reached source".into())),
+            timeline: (0..50)
+                .map(|k| TimeSample {
+                    time_s: f64::from(k) * 0.25,
+                    speed_m_per_s: 0.2,
+                    dynamic_pressure_pa: 3.0 + f64::from(k) * 0.1,
+                    standoff_m: (k > 3).then_some(0.1),
+                    mode: if k < 4 { "Hold" } else { "Nominal" }.into(),
+                    reason: if k < 4 {
+                        "HoldModeSettling"
+                    } else {
+                        "FollowUpstream"
+                    }
+                    .into(),
+                    faults_active: u32::from((20..30).contains(&k)),
+                })
+                .collect(),
             centrelines: vec![vec![[0.0, 0.0, 0.0], [10.0, 0.0, 0.0]]],
             path: vec![[0.0, 0.0, 0.0], [5.0, 0.1, 0.2], [9.0, 0.0, 0.0]],
             sections: vec![SectionMark {
@@ -443,10 +777,7 @@ mod tests {
         assert!(svg.contains("test &lt;&amp;&gt; scene"));
         assert!(svg.contains("too narrow: 0.21 m &lt; 0.30 m"));
         // Two panels, each with the path polyline.
-        assert_eq!(
-            svg.matches("stroke=\"#c0392b\" stroke-width=\"2\"").count(),
-            2
-        );
+        assert_eq!(svg.matches("class=\"path\"").count(), 2);
         assert_eq!(svg.matches("top view").count(), 1);
         assert_eq!(svg.matches("side view").count(), 1);
         // No external references.

@@ -215,6 +215,21 @@ pub enum ProbeLayoutSpec {
     },
 }
 
+/// `7-port, side ports at 40° from the axis`, `custom, 9 ports`.
+impl std::fmt::Display for ProbeLayoutSpec {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Self::FivePort { cone_angle_deg } => {
+                write!(f, "5-port, side ports at {cone_angle_deg}° from the axis")
+            }
+            Self::SevenPort { cone_angle_deg } => {
+                write!(f, "7-port, side ports at {cone_angle_deg}° from the axis")
+            }
+            Self::Custom { normals } => write!(f, "custom, {} ports", normals.len()),
+        }
+    }
+}
+
 /// The probe as configured.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ProbeSpec {

@@ -141,7 +141,7 @@ fn layout<const N: usize>(robot: &RobotSpec) -> Result<ProbeLayout<N>, RunError>
         }
         ProbeLayoutSpec::Custom { normals } if normals.len() == N => custom_from(normals, sigma),
         other => Err(RunError::Robot(format!(
-            "probe layout {other:?} does not have {N} ports"
+            "the probe layout ({other}) does not have {N} ports"
         ))),
     }
 }
@@ -357,8 +357,8 @@ pub struct TraceSink<W: Write> {
     last_mode: Option<nav_core::health::OperatingMode>,
     reasons: BTreeMap<String, u64>,
     held_steps: u64,
-    failed_ports_seen: u32,
-    failed_contacts_seen: u64,
+    failed_ports_mask: u32,
+    failed_contacts_mask: u64,
     last_reason: Option<String>,
 }
 
@@ -374,8 +374,8 @@ impl<W: Write> TraceSink<W> {
             last_mode: None,
             reasons: BTreeMap::new(),
             held_steps: 0,
-            failed_ports_seen: 0,
-            failed_contacts_seen: 0,
+            failed_ports_mask: 0,
+            failed_contacts_mask: 0,
             last_reason: None,
         }
     }
@@ -408,8 +408,8 @@ impl<W: Write> TraceSink<W> {
         if c.speed_m_per_s == 0.0 {
             self.held_steps += 1;
         }
-        self.failed_ports_seen |= c.health.failed_ports;
-        self.failed_contacts_seen |= c.health.failed_contacts;
+        self.failed_ports_mask |= c.health.failed_ports;
+        self.failed_contacts_mask |= c.health.failed_contacts;
         Ok(())
     }
 
@@ -431,8 +431,10 @@ impl<W: Write> TraceSink<W> {
             mode_changes: self.mode_changes,
             reasons: self.reasons,
             held_steps: self.held_steps,
-            failed_ports_seen: self.failed_ports_seen,
-            failed_contacts_seen: self.failed_contacts_seen,
+            failed_ports_mask: self.failed_ports_mask,
+            failed_ports_count: self.failed_ports_mask.count_ones(),
+            failed_contacts_mask: self.failed_contacts_mask,
+            failed_contacts_count: self.failed_contacts_mask.count_ones(),
             last_reason: self.last_reason,
         };
         Ok((self.out, stats))
@@ -452,10 +454,15 @@ pub struct TraceStats {
     pub reasons: BTreeMap<String, u64>,
     /// Steps with zero commanded speed.
     pub held_steps: u64,
-    /// Bit mask of ports reported failed at any step.
-    pub failed_ports_seen: u32,
-    /// Bit mask of contact sensors reported failed at any step.
-    pub failed_contacts_seen: u64,
+    /// Bit mask of the ports reported failed at any step (bit k: port k).
+    pub failed_ports_mask: u32,
+    /// Ports reported failed at any step (the bits set in the mask).
+    pub failed_ports_count: u32,
+    /// Bit mask of the contact sensors reported failed at any step (bit k:
+    /// sensor k in configuration order).
+    pub failed_contacts_mask: u64,
+    /// Contact sensors reported failed at any step.
+    pub failed_contacts_count: u32,
     /// Reason code of the last step.
     pub last_reason: Option<String>,
 }
@@ -483,6 +490,22 @@ pub struct RunSummary {
     pub probe_errors: u64,
     /// Frames the tactile layer refused.
     pub tactile_errors: u64,
+    /// Damage skipped by a salvaging read of a log (`None`: not a
+    /// salvaging read, or nothing was damaged).
+    pub salvaged: Option<SalvageReport>,
+}
+
+/// What a salvaging read skipped.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SalvageReport {
+    /// Damaged places.
+    pub places: u64,
+    /// Bytes skipped.
+    pub bytes_skipped: u64,
+    /// Records known lost.
+    pub records_lost: u64,
+    /// The places, in file order (at most the reader's listing limit).
+    pub damage: Vec<crate::log::Damage>,
 }
 
 /// Options of a live run.
@@ -598,31 +621,8 @@ pub fn run_live<T: Write, L: Write>(
         sink.push(&cmd)?;
         if opts.scene_every > 0 && step.is_multiple_of(opts.scene_every) {
             let t = sim.true_state();
-            scene.path.push(t.head_position_m);
-            let snap = nav.snapshot();
-            if let Some((c, a, r)) = snap.section {
-                scene.sections.push(crate::plot::SectionMark {
-                    centre_m: c,
-                    axis: a,
-                    radius_m: r,
-                });
-            }
-            // One flow arrow per metre travelled keeps the picture legible
-            // whatever the speed.
-            let far_enough = scene.flow.last().is_none_or(|a| {
-                let d: f64 = (0..3)
-                    .map(|i| (a.position_m[i] - t.head_position_m[i]).powi(2))
-                    .sum();
-                d >= 1.0
-            });
-            if far_enough && let Some(d) = snap.flow_dir {
-                scene.flow.push(crate::plot::FlowArrow {
-                    position_m: t.head_position_m,
-                    direction: d,
-                    strength: 1.0,
-                });
-            }
-            scene.contacts.extend(snap.wall_points);
+            let active = u32::try_from(active_fault_labels(&sim).len()).unwrap_or(u32::MAX);
+            add_to_scene(&mut scene, t.head_position_m, &nav, &cmd, active);
         }
         for f in active_fault_labels(&sim) {
             if !faults.contains(&f) {
@@ -662,6 +662,11 @@ pub fn run_live<T: Write, L: Write>(
     let snap = nav.snapshot();
     scene.junctions = snap.junctions;
     scene.start_m = scene.path.first().copied();
+    scene.path_label = "true path".to_string();
+    if opts.scene_every > 0 {
+        scene.path.push(sim.true_state().head_position_m);
+        scene.end = Some((sim.true_state().head_position_m, outcome.clone()));
+    }
     let o = sim.outcome();
     let (probe_errors, tactile_errors) = counters(&nav);
     let (_, stats) = sink.finish()?;
@@ -680,9 +685,53 @@ pub fn run_live<T: Write, L: Write>(
         faults_seen: faults,
         probe_errors,
         tactile_errors,
+        salvaged: None,
     };
     add_world_to_scene(&sim, &mut scene);
     Ok((LiveResult { summary, scene }, log_out))
+}
+
+/// Add one moment to a plot scene: the head position (true, or odometry),
+/// what the navigator believes, and a time-strip sample.
+fn add_to_scene(
+    scene: &mut crate::plot::Scene,
+    head_m: [f64; 3],
+    nav: &AnyNavigator,
+    cmd: &Command,
+    faults_active: u32,
+) {
+    scene.path.push(head_m);
+    let snap = nav.snapshot();
+    if let Some((c, a, r)) = snap.section {
+        scene.sections.push(crate::plot::SectionMark {
+            centre_m: c,
+            axis: a,
+            radius_m: r,
+        });
+    }
+    // One flow arrow per metre travelled keeps the picture legible
+    // whatever the speed.
+    let far_enough = scene.flow.last().is_none_or(|a| {
+        let d: f64 = (0..3).map(|i| (a.position_m[i] - head_m[i]).powi(2)).sum();
+        d >= 1.0
+    });
+    if far_enough && let Some(d) = snap.flow_dir {
+        scene.flow.push(crate::plot::FlowArrow {
+            position_m: head_m,
+            direction: d,
+            strength: 1.0,
+        });
+    }
+    scene.contacts.extend(snap.wall_points);
+    scene.timeline.push(crate::plot::TimeSample {
+        time_s: cmd.time_s,
+        speed_m_per_s: cmd.speed_m_per_s,
+        dynamic_pressure_pa: cmd.record.dynamic_pressure_pa,
+        standoff_m: cmd.record.standoff_m,
+        mode: format!("{:?}", cmd.mode),
+        reason: format!("{:?}", cmd.record.reason),
+        faults_active,
+    });
 }
 
 /// Labels of the scenario faults active now.
@@ -692,7 +741,7 @@ fn active_fault_labels(sim: &Sim) -> Vec<String> {
         .faults
         .iter()
         .filter(|f| f.active(t))
-        .map(|f| format!("{:?} from {} s", f.kind, f.at_s))
+        .map(ToString::to_string)
         .collect()
 }
 
@@ -721,15 +770,148 @@ pub fn add_world_to_scene(sim: &Sim, scene: &mut crate::plot::Scene) {
             down.push([p[0], p[1], p[2] - r]);
         }
         scene.centrelines.push(centre);
-        scene.true_walls.push(left);
-        scene.true_walls.push(right);
-        scene.true_walls.push(up);
-        scene.true_walls.push(down);
+        // Side walls in the top view, roof and floor in the side view (the
+        // others project onto the centreline); each broken where another
+        // conduit opens into this one.
+        scene.walls_top.extend(outside_other_tubes(g, c, &left));
+        scene.walls_top.extend(outside_other_tubes(g, c, &right));
+        scene.walls_side.extend(outside_other_tubes(g, c, &up));
+        scene.walls_side.extend(outside_other_tubes(g, c, &down));
+    }
+    let sc = sim.scenario();
+    let mut degree = vec![0u32; sc.nodes.len()];
+    for cg in &g.conduits {
+        for n in [cg.from, cg.to] {
+            if let Some(d) = degree.get_mut(n) {
+                *d += 1;
+            }
+        }
+    }
+    use crate::sim::scenario::NodeKind;
+    for (n, d) in sc.nodes.iter().zip(&degree) {
+        let role = match n.kind {
+            NodeKind::Exit { .. } => Some(crate::plot::NodeRole::Exit),
+            NodeKind::Junction if *d <= 1 => Some(crate::plot::NodeRole::BlindEnd),
+            NodeKind::Junction => None,
+            _ => Some(crate::plot::NodeRole::Source),
+        };
+        if let Some(role) = role {
+            scene.nodes.push(crate::plot::NodeMark {
+                position_m: n.position_m,
+                role,
+                label: n.id.clone(),
+            });
+        }
     }
     scene.source_m = sim
         .true_path()
         .and_then(|p| sim.scenario().nodes.get(p.source))
         .map(|n| n.position_m);
+}
+
+/// The runs of `line` (a wall of conduit `c`) that lie outside every other
+/// conduit: the wall stops where another tube opens into this one.
+fn outside_other_tubes(
+    g: &crate::sim::geometry::Geometry,
+    c: usize,
+    line: &[[f64; 3]],
+) -> Vec<Vec<[f64; 3]>> {
+    let mut runs = Vec::new();
+    let mut run: Vec<[f64; 3]> = Vec::new();
+    for p in line {
+        let inside_other = g.candidates(*p).iter().any(|&pi| {
+            g.pieces.get(pi as usize).is_some_and(|piece| {
+                let h = piece.locate(pi, *p);
+                h.conduit as usize != c && h.clearance_m > 0.01
+            })
+        });
+        if inside_other {
+            if run.len() >= 2 {
+                runs.push(std::mem::take(&mut run));
+            }
+            run.clear();
+        } else {
+            run.push(*p);
+        }
+    }
+    if run.len() >= 2 {
+        runs.push(run);
+    }
+    runs
+}
+
+/// Replay a log through the navigator for a picture: the odometry path,
+/// what the navigator believed (contacts, sections, flow, junctions) and
+/// the time strip; no true walls (a log holds no truth).
+///
+/// # Errors
+/// As [`run_log`].
+pub fn scene_of_log<R: std::io::Read>(
+    input: &str,
+    reader: R,
+    salvage: bool,
+    every: u64,
+) -> Result<(RunSummary, crate::plot::Scene), RunError> {
+    let opts = if salvage {
+        ReadOptions::salvage()
+    } else {
+        ReadOptions::default()
+    };
+    let mut r = LogReader::open(reader, opts).map_err(RunError::Log)?;
+    let header: LogHeader = r.header().clone();
+    let mut nav = AnyNavigator::new(&header.robot, &header.gas)?;
+    let mut scene = crate::plot::Scene {
+        title: format!("{input} (recorded log)"),
+        path_label: "odometry path".to_string(),
+        ..crate::plot::Scene::default()
+    };
+    let mut index = 0u64;
+    let mut last = None;
+    while let Some(rec) = r.next_record().map_err(RunError::Log)? {
+        if let Record::Frame(f) = rec {
+            let cmd = nav
+                .step(&f)
+                .map_err(|reason| RunError::Frame { index, reason })?;
+            if let Some(p) = f.pose {
+                last = Some(p.position_m);
+                if index.is_multiple_of(every.max(1)) {
+                    let failed = cmd.health.failed_ports.count_ones()
+                        + cmd.health.failed_contacts.count_ones();
+                    add_to_scene(&mut scene, p.position_m, &nav, &cmd, failed);
+                }
+            }
+            index += 1;
+        }
+    }
+    scene.junctions = nav.snapshot().junctions;
+    scene.start_m = scene.path.first().copied();
+    if let Some(p) = last {
+        scene.path.push(p);
+    }
+    drop(r);
+    Ok((
+        RunSummary {
+            input: input.to_string(),
+            scenario: header.provenance.get("scenario").cloned(),
+            seed: header.provenance.get("seed").and_then(|s| s.parse().ok()),
+            outcome: "end of log".to_string(),
+            time_span_s: [
+                scene.timeline.first().map_or(f64::NAN, |t| t.time_s),
+                scene.timeline.last().map_or(f64::NAN, |t| t.time_s),
+            ],
+            trace: TraceSink::new(std::io::sink()).finish()?.1,
+            truth: None,
+            faults_seen: Vec::new(),
+            probe_errors: 0,
+            tactile_errors: 0,
+            salvaged: None,
+        },
+        {
+            let mut sc = scene;
+            sc.end = last.map(|p| (p, "end of log".to_string()));
+            sc
+        },
+    ))
 }
 
 /// Replay a log through the navigator, writing the trace.
@@ -781,21 +963,37 @@ pub fn run_log<R: std::io::Read, T: Write>(
     }
     let (probe_errors, tactile_errors) = counters(&nav);
     let (_, stats) = sink.finish()?;
+    let st = r.stats();
+    let salvaged = (st.damaged_places > 0).then(|| SalvageReport {
+        places: st.damaged_places,
+        bytes_skipped: st.bytes_skipped,
+        records_lost: st.records_lost,
+        damage: r.damage().to_vec(),
+    });
+    let mut outcome = if r.saw_end() {
+        "end of log".to_string()
+    } else {
+        "log ended without its end record".to_string()
+    };
+    if let Some(s) = &salvaged {
+        outcome = format!(
+            "{outcome}, salvaged past {} damaged {}",
+            s.places,
+            crate::report::plural(s.places, "place", "places")
+        );
+    }
     Ok(RunSummary {
         input: input.to_string(),
         scenario: header.provenance.get("scenario").cloned(),
         seed: header.provenance.get("seed").and_then(|s| s.parse().ok()),
-        outcome: if r.saw_end() {
-            "end of log".to_string()
-        } else {
-            "log ended without its end record".to_string()
-        },
+        outcome,
         time_span_s: span,
         trace: stats,
         truth: None,
         faults_seen: faults,
         probe_errors,
         tactile_errors,
+        salvaged,
     })
 }
 
@@ -915,4 +1113,43 @@ pub fn peak_rss_mb() -> f64 {
             })
         })
         .map_or(f64::NAN, |kb| kb / 1024.0)
+}
+
+#[cfg(test)]
+mod scene_tests {
+    use super::*;
+
+    /// In the top view the walls are the side walls: none runs down a
+    /// centreline (the roof and floor project onto it and belong to the
+    /// side view), and none crosses another conduit's opening.
+    #[test]
+    fn top_view_walls_stay_off_the_centrelines() {
+        let sim = build_sim("demo:saltpetre-drift", None).expect("demo");
+        let mut scene = crate::plot::Scene::default();
+        add_world_to_scene(&sim, &mut scene);
+        assert!(!scene.walls_top.is_empty() && !scene.walls_side.is_empty());
+        let g = &sim.world().geometry;
+        for w in scene.walls_top.iter().flatten() {
+            let clearance = g.clearance_m(*w);
+            assert!(
+                clearance.abs() < 0.02,
+                "a top-view wall point {w:?} is {clearance} m inside the network"
+            );
+        }
+        assert!(
+            scene
+                .nodes
+                .iter()
+                .any(|n| n.role == crate::plot::NodeRole::BlindEnd),
+            "Saltpetre Drift has blind ends"
+        );
+        assert!(
+            scene
+                .nodes
+                .iter()
+                .filter(|n| n.role == crate::plot::NodeRole::Exit)
+                .count()
+                >= 2
+        );
+    }
 }

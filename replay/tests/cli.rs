@@ -56,7 +56,7 @@ fn import_then_inspect_then_damage() {
     std::fs::write(&bad, &bytes).unwrap();
     let (code, out, _) = replay(&["inspect", bad.to_str().unwrap()]);
     assert_eq!(code, 1, "damage found: exit 1");
-    assert!(out.contains("damage: 1 places"), "{out}");
+    assert!(out.contains("damage: 1 place,"), "{out}");
 
     let (code, _, err) = replay(&["inspect", csv.to_str().unwrap()]);
     assert_eq!(code, 2);

@@ -1,19 +1,24 @@
 //! `replay campaign`: many seeds over one or more scenarios, in parallel.
 
 use super::out::{Out, create, finish};
-use replay::campaign::{CampaignPlan, Shard, format_table, run, summarise, write_results};
+use replay::campaign::{
+    CampaignPlan, ScenarioSummary, Shard, below_success, format_table, run, summarise,
+    write_results,
+};
 use replay::report::failures_text;
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-/// Many seeds over one or more scenarios, in parallel.
+/// Many seeds over one or more scenarios, in parallel. Exit 0 when every
+/// run was done (and, with `--min-success`, every scenario met it), 1 when
+/// a scenario's success rate is below `--min-success`, 2 on error.
 #[derive(Debug, clap::Args)]
 pub struct Args {
     /// Scenario files or `demo:<name>` (repeatable).
     #[arg(long = "scenario", value_name = "SCENARIO", required = true)]
     pub scenarios: Vec<String>,
-    /// Seeds per scenario.
-    #[arg(long, default_value_t = 100)]
+    /// Seeds per scenario (at least 1).
+    #[arg(long, default_value_t = 100, value_parser = clap::value_parser!(u64).range(1..))]
     pub seeds: u64,
     /// First seed.
     #[arg(long, default_value_t = 1)]
@@ -21,9 +26,11 @@ pub struct Args {
     /// Worker threads (0: one per core).
     #[arg(long, default_value_t = 0)]
     pub threads: usize,
-    /// Run only shard i of n (0-based), e.g. `--shard 3/16`.
-    #[arg(long, value_name = "I/N", value_parser = Shard::parse)]
-    pub shard: Option<Shard>,
+    /// Run only shard i of n (0-based), e.g. `--shard 3/16`; or `--shard
+    /// env`: i and n from a Slurm job array or a Kubernetes indexed job
+    /// (example job files in `replay/jobs/`).
+    #[arg(long, value_name = "I/N|env", value_parser = shard_arg)]
+    pub shard: Option<ShardArg>,
     /// Results file (JSON Lines; input to `merge`).
     #[arg(
         short = 'o',
@@ -33,19 +40,56 @@ pub struct Args {
     )]
     pub out: PathBuf,
     /// Stop each run after this much simulated time, s.
-    #[arg(long, value_name = "S")]
+    #[arg(long, value_name = "S", value_parser = super::check::time_limit_s)]
     pub max_time: Option<f64>,
+    /// Fail (exit 1) when any scenario reaches the source in fewer than
+    /// this percentage of its runs (of this shard's runs, when sharded).
+    #[arg(long, value_name = "PERCENT", value_parser = super::check::percent)]
+    pub min_success: Option<f64>,
     /// No progress bar.
     #[arg(long)]
     pub quiet: bool,
 }
 
+/// A shard given on the command line, or to be read from the scheduler.
+#[derive(Debug, Clone, Copy)]
+pub enum ShardArg {
+    /// `i/n`.
+    Fixed(Shard),
+    /// `env`.
+    FromEnv,
+}
+
+fn shard_arg(text: &str) -> Result<ShardArg, String> {
+    if text == "env" {
+        Ok(ShardArg::FromEnv)
+    } else {
+        Shard::parse(text).map(ShardArg::Fixed)
+    }
+}
+
 /// Run the command.
 ///
 /// # Errors
-/// A thread pool or results file that cannot be made.
+/// A scenario that cannot be loaded (checked before any run), a thread
+/// pool or results file that cannot be made.
 pub fn exec(a: Args, out: &mut Out) -> Result<ExitCode, String> {
-    let shard = a.shard.unwrap_or(Shard::ALL);
+    for s in &a.scenarios {
+        replay::run::build_sim(s, None).map_err(|e| format!("scenario {s}: {e}"))?;
+    }
+    let shard = match a.shard {
+        None => Shard::ALL,
+        Some(ShardArg::Fixed(s)) => s,
+        Some(ShardArg::FromEnv) => {
+            let (s, from) = Shard::from_env(|k| std::env::var(k).ok())
+                .map_err(|e| format!("--shard env: {e}"))?;
+            out.note(
+                "campaign",
+                format_args!("shard {}/{} from the {from}", s.index, s.count),
+            );
+            s
+        }
+    };
     let plan = CampaignPlan {
         scenarios: a.scenarios,
         first_seed: a.first_seed,
@@ -77,8 +121,9 @@ pub fn exec(a: Args, out: &mut Out) -> Result<ExitCode, String> {
     write_results(&mut w, &plan, shard, &results).map_err(|e| e.to_string())?;
     finish(w, &a.out)?;
     let wall = started.elapsed().as_secs_f64();
+    let summaries = summarise(&plan, &results);
     if shard == Shard::ALL {
-        out.text(format_table(&summarise(&plan, &results)));
+        out.text(format_table(&summaries));
         out.text(failures_text(&results, max_time));
     }
     out.line(format_args!(
@@ -86,5 +131,29 @@ pub fn exec(a: Args, out: &mut Out) -> Result<ExitCode, String> {
         results.len(),
         a.out.display()
     ));
-    Ok(ExitCode::SUCCESS)
+    Ok(success_verdict(&summaries, a.min_success, out, "campaign"))
+}
+
+/// Exit 1, saying which scenarios, when a success rate is below
+/// `min_percent`; else 0.
+pub fn success_verdict(
+    summaries: &[ScenarioSummary],
+    min_percent: Option<f64>,
+    out: &mut Out,
+    command: &str,
+) -> ExitCode {
+    let Some(min) = min_percent else {
+        return ExitCode::SUCCESS;
+    };
+    let low = below_success(summaries, min / 100.0);
+    for (scenario, rate) in &low {
+        out.note(
+            command,
+            format_args!(
+                "{scenario}: success {:.1}% is below the required {min}%",
+                100.0 * rate
+            ),
+        );
+    }
+    ExitCode::from(u8::from(!low.is_empty()))
 }

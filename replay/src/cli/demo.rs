@@ -13,18 +13,18 @@ const DEFAULT_DEMO: &str = "wrens-slot";
 /// summary and write the trace, summary and plot.
 #[derive(Debug, clap::Args)]
 pub struct Args {
-    /// Which demo (see `replay scenarios`).
-    #[arg(default_value = DEFAULT_DEMO)]
+    /// Which demo (see `replay scenarios`), with or without `demo:`.
+    #[arg(default_value = DEFAULT_DEMO, value_parser = super::check::demo_name)]
     pub name: String,
     /// Seed (default: the scenario's own).
     #[arg(long)]
     pub seed: Option<u64>,
     /// Output folder.
-    #[arg(long, value_name = "DIR", default_value = "out/demo")]
+    #[arg(short = 'o', long, value_name = "DIR", default_value = "out/demo")]
     pub out: PathBuf,
     /// Stop after this much simulated time, s (default: the scenario's
     /// duration).
-    #[arg(long, value_name = "S")]
+    #[arg(long, value_name = "S", value_parser = super::check::time_limit_s)]
     pub max_time: Option<f64>,
 }
 

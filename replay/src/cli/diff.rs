@@ -14,11 +14,11 @@ pub struct Args {
     /// Trace B.
     pub b: PathBuf,
     /// Absolute tolerance for float fields.
-    #[arg(long, value_name = "X", default_value_t = 0.0)]
+    #[arg(long, value_name = "X", default_value_t = 0.0, value_parser = super::check::tolerance)]
     pub abs_tol: f64,
     /// Relative tolerance for float fields (fraction of the larger
     /// magnitude).
-    #[arg(long, value_name = "Y", default_value_t = 0.0)]
+    #[arg(long, value_name = "Y", default_value_t = 0.0, value_parser = super::check::tolerance)]
     pub rel_tol: f64,
     /// Most fields listed for the first diverging step.
     #[arg(long, value_name = "N", default_value_t = 50)]

@@ -19,7 +19,7 @@ pub struct Args {
     #[arg(short = 'o', long = "out", value_name = "LOG")]
     pub out: PathBuf,
     /// Stop after this much simulated time, s.
-    #[arg(long, value_name = "S")]
+    #[arg(long, value_name = "S", value_parser = super::check::time_limit_s)]
     pub max_time: Option<f64>,
 }
 

@@ -23,13 +23,19 @@ pub struct Args {
 /// # Errors
 /// The import's error, naming the file, row and column at fault.
 pub fn exec(a: Args, out: &mut Out) -> Result<ExitCode, String> {
+    if let Some(dir) = a.out.parent()
+        && !dir.as_os_str().is_empty()
+    {
+        std::fs::create_dir_all(dir).map_err(|e| format!("{}: {e}", dir.display()))?;
+    }
     let sum = import_files(&a.csv, &a.map, &a.out).map_err(|e| e.to_string())?;
+    use replay::report::count;
     out.line(format_args!(
-        "imported {} rows: {} frames, {} notes, {} contacts, {} bytes -> {}",
-        sum.rows,
-        sum.frames,
-        sum.notes,
-        sum.contacts,
+        "imported {}: {}, {}, {}, {} bytes -> {}",
+        count(sum.rows, "row", "rows"),
+        count(sum.frames, "frame", "frames"),
+        count(sum.notes, "note", "notes"),
+        count(sum.contacts, "contact", "contacts"),
         sum.bytes,
         a.out.display()
     ));
@@ -40,5 +46,17 @@ pub fn exec(a: Args, out: &mut Out) -> Result<ExitCode, String> {
         sum.rows_without_pose,
         sum.rows_without_joints
     ));
+    if let Some((line, column)) = &sum.first_non_finite {
+        out.line(format_args!(
+            "non-finite: {} NaN and {} infinite {} kept as values (first at line {line}, column \"{column}\")",
+            sum.nan_cells,
+            sum.infinite_cells,
+            if sum.nan_cells + sum.infinite_cells == 1 {
+                "cell"
+            } else {
+                "cells"
+            }
+        ));
+    }
     Ok(ExitCode::SUCCESS)
 }

@@ -4,6 +4,7 @@
 //! writes through [`out::Out`].
 
 pub mod campaign;
+pub mod check;
 pub mod demo;
 pub mod diff;
 pub mod generate;

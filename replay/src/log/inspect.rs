@@ -93,6 +93,9 @@ pub struct SensorHealth {
     pub nan_contacts: u64,
     /// NaN temperatures (frames).
     pub nan_temperature: u64,
+    /// Infinite values anywhere in a frame (time, pose, joints, ports,
+    /// temperature, contacts).
+    pub infinite_values: u64,
     /// Frames whose port count differs from the header's probe layout.
     pub port_count_mismatch: u64,
     /// Frames whose joint count differs from the header's module chain.
@@ -205,8 +208,39 @@ fn frac(n: u64, of: u64) -> f64 {
     }
 }
 
+/// Infinite values anywhere in a frame.
+fn infinite_in(f: &FrameRecord) -> u64 {
+    let inf = |v: &f64| u64::from(v.is_infinite());
+    let mut n = inf(&f.time_s);
+    if let Some(p) = &f.pose {
+        n += p.position_m.iter().map(inf).sum::<u64>()
+            + p.orientation_wxyz.iter().map(inf).sum::<u64>()
+            + inf(&p.position_sigma_m)
+            + inf(&p.attitude_sigma_rad);
+    }
+    if let Some(js) = &f.joints {
+        n += js
+            .iter()
+            .map(|j| inf(&j.pitch_rad) + inf(&j.yaw_rad))
+            .sum::<u64>();
+    }
+    if let Some(ps) = &f.port_pressures_pa {
+        n += ps.iter().map(inf).sum::<u64>();
+    }
+    if let Some(t) = &f.total_temperature_k {
+        n += inf(t);
+    }
+    for c in &f.contacts {
+        n += inf(&c.force_n)
+            + c.normal_module
+                .map_or(0, |v| v.iter().map(inf).sum::<u64>());
+    }
+    n
+}
+
 fn health_of(h: &mut SensorHealth, f: &FrameRecord, header: &LogHeader) {
     h.frames += 1;
+    h.infinite_values += infinite_in(f);
     if f.time_s.is_nan() {
         h.nan_time += 1;
     }
@@ -345,8 +379,14 @@ pub fn inspect<R: Read>(src: R, opts: ReadOptions) -> Result<InspectReport, LogE
     })
 }
 
+/// A time or interval rounded for reading (the JSON report keeps full
+/// precision).
 fn opt(v: Option<f64>, unit: &str) -> String {
-    v.map_or_else(|| "-".to_owned(), |x| format!("{x} {unit}"))
+    v.map_or_else(|| "-".to_owned(), |x| format!("{x:.3} {unit}"))
+}
+
+fn plural(n: u64, one: &str, many: &str) -> String {
+    format!("{n} {}", if n == 1 { one } else { many })
 }
 
 impl std::fmt::Display for InspectReport {
@@ -354,9 +394,9 @@ impl std::fmt::Display for InspectReport {
         let h = &self.header;
         writeln!(
             f,
-            "header: {} bytes; {} modules, probe {:?}, gas gamma {} R {} J/(kg K)",
+            "header: {} bytes; {}, probe {}, gas gamma {} R {} J/(kg K)",
             self.header_bytes,
-            h.robot.modules.len(),
+            plural(h.robot.modules.len() as u64, "module", "modules"),
             h.robot.probe.layout,
             h.gas.gamma,
             h.gas.r_j_per_kg_k
@@ -422,6 +462,7 @@ impl std::fmt::Display for InspectReport {
             s.nan_contacts,
             s.nan_temperature
         )?;
+        writeln!(f, "  infinite values: {}", s.infinite_values)?;
         writeln!(
             f,
             "  contacts: {} total, at most {} in a frame, {} naming no known sensor; count mismatches: ports {}, joints {}",
@@ -442,8 +483,10 @@ impl std::fmt::Display for InspectReport {
         let v = &self.salvage;
         writeln!(
             f,
-            "damage: {} places, {} bytes skipped, {} records lost",
-            v.damaged_places, v.bytes_skipped, v.records_lost
+            "damage: {}, {} bytes skipped, {} lost",
+            plural(v.damaged_places, "place", "places"),
+            v.bytes_skipped,
+            plural(v.records_lost, "record", "records")
         )?;
         for d in &self.damage {
             writeln!(f, "  {d}")?;

@@ -235,6 +235,18 @@ pub struct Damage {
     pub skipped_bytes: u64,
 }
 
+impl DamageKind {
+    /// Whether this is damage to the file header (magic, version, header
+    /// section), which leaves nothing after it readable.
+    #[must_use]
+    pub fn is_file_header(&self) -> bool {
+        matches!(
+            self,
+            Self::BadMagic { .. } | Self::UnsupportedVersion { .. } | Self::BadHeader { .. }
+        )
+    }
+}
+
 impl std::fmt::Display for DamageKind {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         match self {
@@ -312,6 +324,9 @@ pub enum LogError {
 impl std::fmt::Display for LogError {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         match self {
+            Self::Damaged(d) if d.kind.is_file_header() => {
+                write!(f, "file header damaged at byte {}: {}", d.offset, d.kind)
+            }
             Self::Damaged(d) => write!(f, "damaged log at {d}"),
             Self::Io { offset, source } => write!(f, "I/O error at byte {offset}: {source}"),
             Self::Encode { what, message } => write!(f, "cannot encode {what}: {message}"),

@@ -200,8 +200,16 @@ impl<R: Read> LogReader<R> {
             }));
         }
         if at_end {
-            if matches!(kind, DamageKind::Truncated { .. }) {
-                self.input.pos = self.input.end;
+            match kind {
+                DamageKind::Truncated { .. } => self.input.pos = self.input.end,
+                // Count every byte after the end record, a buffer at a time.
+                DamageKind::AfterEnd => loop {
+                    self.input.pos = self.input.end;
+                    if self.input.fill(1)? == 0 {
+                        break;
+                    }
+                },
+                _ => {}
             }
             self.done = true;
         } else {

@@ -356,6 +356,26 @@ fn bytes_after_the_end_record_are_reported() {
     assert_eq!(got, records, "the end record is returned first");
     let d = err.unwrap().damage().unwrap().clone();
     assert_eq!((d.kind, d.offset), (DamageKind::AfterEnd, end_at));
+    // Salvage counts every byte after the end, across buffer refills.
+    let mut long = bytes.clone();
+    long.extend(std::iter::repeat_n(0xa5u8, 200_000));
+    let (_, damage, stats) = salvage_all(&long);
+    assert_eq!(damage.len(), 1);
+    assert_eq!(damage[0].kind, DamageKind::AfterEnd);
+    assert_eq!(damage[0].skipped_bytes, 4 + 200_000);
+    assert_eq!(stats.bytes_skipped, 4 + 200_000);
+}
+
+#[test]
+fn file_header_damage_is_named_as_such() {
+    let (mut bytes, _, _, _) = small_log();
+    bytes[12] ^= 1;
+    let e = drain(&bytes, ReadOptions::salvage()).unwrap_err();
+    let text = e.to_string();
+    assert!(
+        text.starts_with("file header damaged at byte 12: bad header"),
+        "{text}"
+    );
 }
 
 #[test]

@@ -616,6 +616,50 @@ pub struct Fault {
     pub until_s: f64,
 }
 
+impl std::fmt::Display for Channel {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            Self::Probe => "probe",
+            Self::Pose => "pose",
+            Self::Joints => "joints",
+            Self::Contacts => "contacts",
+            Self::Temperature => "temperature",
+            Self::All => "every channel",
+        })
+    }
+}
+
+impl std::fmt::Display for FaultKind {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Self::PortBlocked { port } => write!(f, "port {port} blocked"),
+            Self::PortStuck { port } => write!(f, "port {port} stuck"),
+            Self::PortLeak { port, fraction } => {
+                write!(f, "port {port} leaking ({:.0} %)", 100.0 * fraction)
+            }
+            Self::ContactDead { module, sensor } => {
+                write!(f, "contact sensor {sensor} of module {module} dead")
+            }
+            Self::OdometryDrift { drift_m_per_s } => {
+                let [x, y, z] = *drift_m_per_s;
+                write!(f, "odometry drifting ({x:.4}, {y:.4}, {z:.4}) m/s")
+            }
+            Self::Dropout { channel } => write!(f, "{channel} dropout"),
+        }
+    }
+}
+
+/// `port 5 stuck from 45 s to 50 s`; `... from 30 s` when it never ends.
+impl std::fmt::Display for Fault {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{} from {} s", self.kind, self.at_s)?;
+        if self.until_s.is_finite() {
+            write!(f, " to {} s", self.until_s)?;
+        }
+        Ok(())
+    }
+}
+
 impl Fault {
     /// Whether active at `t`.
     #[must_use]
