@@ -14,7 +14,8 @@
  * A second navigator in another static buffer steps the same frames; its
  * commands must match the first one's field for field (no shared state).
  *
- * Build (from the workspace root, after `cargo build -p nav-c`):
+ * Build (from the workspace root, after
+ * `cargo rustc -p nav-c --lib --crate-type staticlib,cdylib`):
  *   cc -std=c11 -Wall -Wextra -Werror -I nav-c/include \
  *      nav-c/examples/replay_digest.c target/debug/libnav_c.a \
  *      -lpthread -ldl -lm -o target/replay_digest

@@ -38,10 +38,9 @@ fn capacity(field: &str, given: u32, most: usize) -> Fault {
     )
 }
 
-/// A C configuration as nav-core's, exactly as `replay` builds it from a
-/// log header (same layout construction, same defaults), so the two give
-/// the same navigator.
-pub(crate) fn onboard_config(c: &UpcConfig) -> Result<AnyConfig, Fault> {
+type Body = BodyConfig<UPC_MAX_MODULES, UPC_MAX_SENSORS>;
+
+fn body_and_gas(c: &UpcConfig) -> Result<(Body, IdealGas), Fault> {
     let n = count(c.module_count);
     if n > UPC_MAX_MODULES {
         return Err(capacity("module_count", c.module_count, UPC_MAX_MODULES));
@@ -50,7 +49,7 @@ pub(crate) fn onboard_config(c: &UpcConfig) -> Result<AnyConfig, Fault> {
     if ns > UPC_MAX_SENSORS {
         return Err(capacity("sensor_count", c.sensor_count, UPC_MAX_SENSORS));
     }
-    let mut body = BodyConfig::<UPC_MAX_MODULES, UPC_MAX_SENSORS>::uniform(
+    let mut body = Body::uniform(
         n,
         ModuleSpec {
             length_m: 0.0,
@@ -82,6 +81,11 @@ pub(crate) fn onboard_config(c: &UpcConfig) -> Result<AnyConfig, Fault> {
             format_args!("gas: {e}"),
         )
     })?;
+    Ok((body, gas))
+}
+
+/// Probe ports the configuration describes (5 or 7).
+fn ports_of(c: &UpcConfig) -> Result<usize, Fault> {
     let ports = match c.probe_layout {
         UPC_PROBE_FIVE_PORT => 5,
         UPC_PROBE_SEVEN_PORT => 7,
@@ -96,15 +100,48 @@ pub(crate) fn onboard_config(c: &UpcConfig) -> Result<AnyConfig, Fault> {
             ));
         }
     };
-    match ports {
-        5 => Ok(AnyConfig::Five(finish(c, body, layout::<5>(c)?, gas))),
-        7 => Ok(AnyConfig::Seven(finish(c, body, layout::<7>(c)?, gas))),
-        _ => Err(Fault::new(
+    if ports == 5 || ports == 7 {
+        Ok(ports)
+    } else {
+        Err(Fault::new(
             UPC_ERR_CAPACITY,
             format_args!("port_count"),
             format_args!("port_count = {ports}: this library runs 5- and 7-port probes"),
-        )),
+        ))
     }
+}
+
+/// A C configuration as nav-core's, exactly as `replay` builds it from a
+/// log header (same layout construction, same defaults), so the two give
+/// the same navigator.
+pub(crate) fn onboard_config(c: &UpcConfig) -> Result<AnyConfig, Fault> {
+    match ports_of(c)? {
+        5 => Ok(AnyConfig::Five(onboard_config_for::<5>(c)?)),
+        _ => Ok(AnyConfig::Seven(onboard_config_for::<7>(c)?)),
+    }
+}
+
+/// A C configuration as nav-core's for a `P`-port navigator (the mapping
+/// `upc_navigator_init` uses), for Rust firmware that keeps its robot in
+/// a [`UpcConfig`] and embeds [`nav_core::onboard::DemoFrameNavigator`]
+/// directly. The result still goes through the navigator's validation.
+///
+/// # Errors
+/// A [`Fault`] naming the field when the configuration does not describe a
+/// `P`-port robot within the capacities, or its layout or gas is refused.
+pub fn onboard_config_for<const P: usize>(
+    c: &UpcConfig,
+) -> Result<OnboardConfig<P, UPC_MAX_MODULES, UPC_MAX_SENSORS>, Fault> {
+    let ports = ports_of(c)?;
+    if ports != P {
+        return Err(Fault::new(
+            UPC_ERR_CAPACITY,
+            format_args!("port_count"),
+            format_args!("the configuration has {ports} ports, the navigator {P}"),
+        ));
+    }
+    let (body, gas) = body_and_gas(c)?;
+    Ok(finish(c, body, layout::<P>(c)?, gas))
 }
 
 fn layout_fault(e: LayoutError) -> Fault {
@@ -154,7 +191,7 @@ fn layout<const N: usize>(c: &UpcConfig) -> Result<ProbeLayout<N>, Fault> {
 
 fn finish<const P: usize>(
     c: &UpcConfig,
-    body: BodyConfig<UPC_MAX_MODULES, UPC_MAX_SENSORS>,
+    body: Body,
     layout: ProbeLayout<P>,
     gas: IdealGas,
 ) -> OnboardConfig<P, UPC_MAX_MODULES, UPC_MAX_SENSORS> {

@@ -60,7 +60,7 @@ mod convert;
 #[cfg(feature = "host")]
 mod host;
 
-pub use convert::command_from_c;
+pub use convert::{command_from_c, onboard_config_for};
 #[cfg(feature = "host")]
 pub use host::*;
 

@@ -65,7 +65,14 @@ fn c_digest(path: &str) -> (String, u64) {
             assert_eq!(upc_navigator_step(nav, &*frame, &mut cmd, &mut err), UPC_OK);
             let mut len = 0usize;
             assert_eq!(
-                upc_trace_line(&cmd, steps, line.as_mut_ptr(), line.len(), &mut len, &mut err),
+                upc_trace_line(
+                    &cmd,
+                    steps,
+                    line.as_mut_ptr(),
+                    line.len(),
+                    &mut len,
+                    &mut err
+                ),
                 UPC_OK
             );
             let bytes: Vec<u8> = line[..len].iter().map(|c| c.to_ne_bytes()[0]).collect();
@@ -111,7 +118,10 @@ fn storage_is_checked_and_instances_are_independent() {
         );
         // No body yet: refused, naming the field; the storage then holds
         // no navigator.
-        assert_eq!(upc_navigator_init(raw, 96 * 1024, &cfg, &mut err), UPC_ERR_BODY);
+        assert_eq!(
+            upc_navigator_init(raw, 96 * 1024, &cfg, &mut err),
+            UPC_ERR_BODY
+        );
         assert_eq!(text(&err.field), "module_count");
         assert!(text(&err.message).contains("module_count = 0"));
         let nav = raw.cast::<UpcNavigator>();
@@ -135,15 +145,24 @@ fn storage_is_checked_and_instances_are_independent() {
             };
         }
         cfg.modules[1].radius_m = -0.01;
-        assert_eq!(upc_navigator_init(raw, 96 * 1024, &cfg, &mut err), UPC_ERR_BODY);
+        assert_eq!(
+            upc_navigator_init(raw, 96 * 1024, &cfg, &mut err),
+            UPC_ERR_BODY
+        );
         assert_eq!(text(&err.field), "modules[1].radius_m");
         cfg.modules[1].radius_m = 0.05;
         cfg.throat_stations = 1;
-        assert_eq!(upc_navigator_init(raw, 96 * 1024, &cfg, &mut err), UPC_ERR_SETTING);
+        assert_eq!(
+            upc_navigator_init(raw, 96 * 1024, &cfg, &mut err),
+            UPC_ERR_SETTING
+        );
         assert_eq!(text(&err.field), "throat_stations");
         cfg.throat_stations = 4;
         cfg.probe_layout = 9;
-        assert_eq!(upc_navigator_init(raw, 96 * 1024, &cfg, &mut err), UPC_ERR_ENUM);
+        assert_eq!(
+            upc_navigator_init(raw, 96 * 1024, &cfg, &mut err),
+            UPC_ERR_ENUM
+        );
         assert_eq!(text(&err.field), "probe_layout");
         cfg.probe_layout = UPC_PROBE_SEVEN_PORT;
 
@@ -165,11 +184,17 @@ fn storage_is_checked_and_instances_are_independent() {
         // A frame with the wrong port count is refused; nothing is stepped.
         f.has_ports = true;
         f.port_count = 5;
-        assert_eq!(upc_navigator_step(nav, &*f, &mut cmd, &mut err), UPC_ERR_FRAME);
+        assert_eq!(
+            upc_navigator_step(nav, &*f, &mut cmd, &mut err),
+            UPC_ERR_FRAME
+        );
         assert_eq!(text(&err.field), "port_count");
         f.port_count = 7;
         f.contact_count = 65;
-        assert_eq!(upc_navigator_step(nav, &*f, &mut cmd, &mut err), UPC_ERR_CAPACITY);
+        assert_eq!(
+            upc_navigator_step(nav, &*f, &mut cmd, &mut err),
+            UPC_ERR_CAPACITY
+        );
         assert_eq!(text(&err.field), "contact_count");
         assert_eq!(upc_navigator_counters(nav).steps, 20);
     }
