@@ -2,6 +2,7 @@
 //! program would: the same trace digest as `replay run` on every fixture
 //! log, caller-provided storage checks, several instances, and errors that
 //! name the field at fault.
+#![cfg(feature = "host")]
 #![allow(unsafe_code)]
 
 use nav_c::*;
@@ -212,4 +213,49 @@ fn command_round_trips_through_the_c_struct() {
     let f = command_from_c(&c).unwrap_err();
     assert_eq!(f.code, UPC_ERR_ENUM);
     assert_eq!(f.field.as_str(), "reason");
+}
+
+#[test]
+fn config_from_header_json_matches_the_log_reader() {
+    let path = fixture("wrens-3-10s.upl");
+    let file = std::fs::File::open(&path).unwrap();
+    let r = replay::log::LogReader::open(
+        std::io::BufReader::new(file),
+        replay::log::ReadOptions::default(),
+    )
+    .unwrap();
+    let json = serde_json::to_vec(r.header()).unwrap();
+    let mut err = no_error();
+    let mut from_json = upc_config_default();
+    let mut from_log = upc_config_default();
+    let p = std::ffi::CString::new(path).unwrap();
+    // SAFETY: valid pointers and lengths.
+    unsafe {
+        assert_eq!(
+            upc_config_from_header_json(json.as_ptr().cast(), json.len(), &mut from_json, &mut err),
+            UPC_OK,
+            "{}",
+            text(&err.message)
+        );
+        let log = upc_log_open(p.as_ptr(), &mut err);
+        assert_eq!(upc_log_config(log, &mut from_log, &mut err), UPC_OK);
+        upc_log_close(log);
+    }
+    assert_eq!(format!("{from_json:?}"), format!("{from_log:?}"));
+    assert_eq!(from_json.probe_layout, UPC_PROBE_FIVE_PORT);
+    assert_eq!(from_json.port_count, 5);
+    assert!(from_json.module_count > 1 && from_json.sensor_count > 0);
+
+    // Broken JSON: the code, and where.
+    let bad = b"{\"robot\": [1, 2";
+    // SAFETY: valid pointers and lengths.
+    let code = unsafe {
+        upc_config_from_header_json(bad.as_ptr().cast(), bad.len(), &mut from_json, &mut err)
+    };
+    assert_eq!(code, UPC_ERR_JSON);
+    assert!(
+        text(&err.message).contains("line 1 column"),
+        "{}",
+        text(&err.message)
+    );
 }

@@ -74,9 +74,10 @@ fn init_refuses_and_names_the_field() {
 #[test]
 fn instances_are_independent() {
     let mut a = scene();
-    let mut slots: Vec<MaybeUninit<StandardFrameNavigator>> = Vec::new();
-    slots.push(MaybeUninit::uninit());
-    slots.push(MaybeUninit::uninit());
+    let mut slots: Vec<MaybeUninit<StandardFrameNavigator>> =
+        std::iter::repeat_with(MaybeUninit::uninit)
+            .take(2)
+            .collect();
     let (x, y) = slots.split_at_mut(1);
     let cfg = a.onboard_config::<8, 48>();
     let n1: &mut FrameNavigator<7, 7, 48, 8, 48, 256, 128, 512, 8> =
