@@ -227,6 +227,33 @@ pub struct OnboardCounters {
 /// let n = command.heading_map.iter().map(|x| x * x).sum::<f64>().sqrt();
 /// assert!((n - 1.0).abs() < 1e-9);
 /// ```
+///
+/// A capacity outside the rules is a compile-time error, here 65 contact
+/// slots (the health masks are 64 bits):
+///
+/// ```compile_fail
+/// use nav_core::onboard::{FrameNavigator, OnboardConfig};
+/// fn build(c: OnboardConfig<7, 8, 48>) {
+///     let _ = FrameNavigator::<7, 7, 65, 8, 48, 256, 128, 512, 8>::new(c);
+/// }
+/// let c: Option<OnboardConfig<7, 8, 48>> = None;
+/// if let Some(c) = c {
+///     build(c);
+/// }
+/// ```
+///
+/// The same with 64 slots builds:
+///
+/// ```
+/// use nav_core::onboard::{FrameNavigator, OnboardConfig};
+/// fn build(c: OnboardConfig<7, 8, 48>) {
+///     let _ = FrameNavigator::<7, 7, 64, 8, 48, 256, 128, 512, 8>::new(c);
+/// }
+/// let c: Option<OnboardConfig<7, 8, 48>> = None;
+/// if let Some(c) = c {
+///     build(c);
+/// }
+/// ```
 #[derive(Debug, Clone)]
 pub struct FrameNavigator<
     const P: usize,
