@@ -247,9 +247,10 @@ fn main() -> ! {
     let mut d = Fnv64::new();
     let mut total: u64 = 0;
     let mut worst: u32 = 0;
+    let mut worst_at: u32 = 0;
     let top = sp();
     let (lo, hi) = paint(512);
-    for _ in 0..count {
+    for k in 0..count {
         if frame(&mut c, &mut f).is_none() {
             hprintln!("frame file truncated");
             debug::exit(debug::EXIT_FAILURE);
@@ -260,7 +261,10 @@ fn main() -> ! {
         // SysTick counts down, 24 bits.
         let dt = t0.wrapping_sub(t1) & 0x00FF_FFFF;
         total += u64::from(dt);
-        worst = worst.max(dt);
+        if dt > worst {
+            worst = dt;
+            worst_at = k;
+        }
         cmd.digest_into(&mut d);
     }
     let step_stack = deepest(lo, hi, top);
@@ -268,11 +272,12 @@ fn main() -> ! {
     let per_step = total * 40 / u64::from(count.max(1));
     let text = core::ptr::addr_of!(__etext) as usize - core::ptr::addr_of!(__stext) as usize;
     hprintln!(
-        "target_step instructions_per_step={} stack_bytes={} text_bytes={} worst_step_instructions={} init_stack_bytes={} steps={} section_fits={} navigator_bytes={}",
+        "target_step instructions_per_step={} stack_bytes={} text_bytes={} worst_step_instructions={} worst_step_index={} init_stack_bytes={} steps={} section_fits={} navigator_bytes={}",
         per_step,
         step_stack,
         text,
         u64::from(worst) * 40,
+        worst_at,
         init_stack,
         count,
         nav.counters().section_fits,
