@@ -4,6 +4,14 @@
 //! pressures and skin contacts into flow and wall estimates, keeps a bounded
 //! local map, and decides where to go next.
 //!
+//! The entry point is [`onboard::FrameNavigator`] (sensor frames in,
+//! commands out); [`onboard::DemoFrameNavigator`] names the demo robots'
+//! capacities. Every error type implements [`core::fmt::Display`].
+//!
+//! Features: `std` (default, host-only extras: the kiddo wall index and
+//! calibration-table building) and `serde`. The embedded build is
+//! `default-features = false`: `no_std`, no `alloc`.
+//!
 //! Rules this crate keeps (see `DEVELOPERS.md`):
 //! - `#![no_std]`, no `alloc`; every capacity is a const generic or
 //!   caller-provided storage.
@@ -36,6 +44,7 @@ extern crate std;
 pub mod body;
 pub mod decide;
 pub mod digest;
+mod display;
 pub mod frame;
 pub mod gas;
 pub mod health;

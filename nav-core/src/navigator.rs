@@ -1,5 +1,8 @@
-//! The one embedding entry point: a validated configuration in, one
-//! observation per step in, one [`Command`] out.
+//! The lower-level decision stage: a validated configuration in, one
+//! map-frame observation per step in, one [`Command`] out. Embedders
+//! normally use [`crate::onboard::FrameNavigator`], the one entry point,
+//! which turns raw sensor frames into these observations; use this level
+//! only with a probe and tactile pipeline of your own.
 //!
 //! `Navigator<P, C, S, W, JN>`: `P` probe ports (<= 32), `C` contact
 //! sensors (<= 64), `S` stations, `W` wall points, `JN` junctions. Built

@@ -1,5 +1,12 @@
 //! The embedding entry point: one sensor frame in, one command out.
 //!
+//! [`FrameNavigator`] is the one type an embedder needs (the lower-level
+//! [`crate::navigator::Navigator`] takes map-frame observations instead of
+//! sensor frames). [`DemoFrameNavigator`] and [`StandardFrameNavigator`]
+//! name its capacities for the demo robots, so the nine const generics need
+//! not be guessed; [`FrameNavigator::init`] builds one in storage the caller
+//! owns (a `static` slot on a microcontroller).
+//!
 //! [`FrameNavigator`] owns every stage of the core and runs them in order
 //! each step:
 //!
@@ -38,6 +45,8 @@ use crate::probe::{
     Direction, FaultReport, FlowSolution, PortSet, ProbeError, ProbeLayout, ProbeSolver,
     SolveOptions, SolverConfig,
 };
+use core::mem::MaybeUninit;
+
 use crate::tactile::{
     OpeningSettings, SectionEstimate, SectionSettings, SectionShape, TactileConfig, TactileError,
     TactileMap, ThroatSettings, ThroatStatus,
@@ -171,6 +180,80 @@ pub struct OnboardCounters {
 }
 
 /// The navigator as embedded: frames in, commands out.
+///
+/// Build it once from an [`OnboardConfig`] ([`FrameNavigator::new`], or
+/// [`FrameNavigator::init`] into storage you own), then call
+/// [`FrameNavigator::step`] with each sensor frame.
+///
+/// The capacities are const generics, checked at compile time (a
+/// navigator with `P > 32` ports, `C > 64` contact slots, or zero map
+/// stations, wall points or junctions does not build): `P` probe ports,
+/// `J` joint slots and `C` contact slots of a frame, `M` modules and `S`
+/// contact sensors of the body, `TW` tactile points, `ST` map stations,
+/// `W` wall-index points, `JN` junction records. [`DemoFrameNavigator`]
+/// has the capacities the host tools run the demo robots with.
+///
+/// ```
+/// use nav_core::body::{BodyConfig, ModuleSpec, SensorSpec};
+/// use nav_core::frame::{HeadPose, SensorFrame};
+/// use nav_core::gas::IdealGas;
+/// use nav_core::onboard::{DemoFrameNavigator, OnboardConfig};
+/// use nav_core::probe::ProbeLayout;
+///
+/// // A body of four modules, 0.3 m long and 0.05 m in radius, with a ring
+/// // of eight contact sensors on the head.
+/// let mut body = BodyConfig::uniform(4, ModuleSpec { length_m: 0.3, radius_m: 0.05 });
+/// for k in 0..8u8 {
+///     let angle_rad = f64::from(k) * core::f64::consts::FRAC_PI_4;
+///     body.push_sensor(SensorSpec { module: 0, axial_m: 0.02, angle_rad });
+/// }
+/// let probe = ProbeLayout::<7>::seven_port(0.7, 2.0).unwrap();
+/// let air = IdealGas::new(1.4, 287.05).unwrap();
+/// let config = OnboardConfig::new(body, probe, air);
+/// // About 85 KB: build it on the heap here; on a microcontroller use
+/// // `FrameNavigator::init` into a static slot.
+/// let mut nav = Box::new(DemoFrameNavigator::<7>::new(config).unwrap());
+///
+/// // A partial frame: a pose only, no probe, no contacts.
+/// let mut frame = SensorFrame::empty(0.01);
+/// frame.pose = Some(HeadPose {
+///     position_m: [0.0; 3],
+///     orientation_wxyz: [1.0, 0.0, 0.0, 0.0],
+///     position_sigma_m: 0.01,
+///     attitude_sigma_rad: 0.01,
+/// });
+/// let command = nav.step(&frame);
+/// assert!(command.speed_m_per_s >= 0.0);
+/// let n = command.heading_map.iter().map(|x| x * x).sum::<f64>().sqrt();
+/// assert!((n - 1.0).abs() < 1e-9);
+/// ```
+///
+/// A capacity outside the rules is a compile-time error, here 65 contact
+/// slots (the health masks are 64 bits):
+///
+/// ```compile_fail
+/// use nav_core::onboard::{FrameNavigator, OnboardConfig};
+/// fn build(c: OnboardConfig<7, 8, 48>) {
+///     let _ = FrameNavigator::<7, 7, 65, 8, 48, 256, 128, 512, 8>::new(c);
+/// }
+/// let c: Option<OnboardConfig<7, 8, 48>> = None;
+/// if let Some(c) = c {
+///     build(c);
+/// }
+/// ```
+///
+/// The same with 64 slots builds:
+///
+/// ```
+/// use nav_core::onboard::{FrameNavigator, OnboardConfig};
+/// fn build(c: OnboardConfig<7, 8, 48>) {
+///     let _ = FrameNavigator::<7, 7, 64, 8, 48, 256, 128, 512, 8>::new(c);
+/// }
+/// let c: Option<OnboardConfig<7, 8, 48>> = None;
+/// if let Some(c) = c {
+///     build(c);
+/// }
+/// ```
 #[derive(Debug, Clone)]
 pub struct FrameNavigator<
     const P: usize,
@@ -205,6 +288,13 @@ pub struct FrameNavigator<
 /// stations, 512 wall-index points, 8 junctions.
 pub type StandardFrameNavigator = FrameNavigator<7, 7, 48, 8, 48, 256, 128, 512, 8>;
 
+/// A frame navigator with the capacities the host tools (`replay`) run the
+/// demo robots with, for a `P`-port probe (5 or 7): up to 8 modules (7
+/// joints), 64 contact slots and sensors, 256 tactile points, 128
+/// stations, 512 wall-index points, 8 junctions. The same frames give the
+/// same commands, bit for bit, as `replay run`.
+pub type DemoFrameNavigator<const P: usize> = FrameNavigator<P, 7, 64, 8, 64, 256, 128, 512, 8>;
+
 impl<
     const P: usize,
     const J: usize,
@@ -217,11 +307,31 @@ impl<
     const JN: usize,
 > FrameNavigator<P, J, C, M, S, TW, ST, W, JN>
 {
+    /// The capacity rules, checked when the type is used (a compile-time
+    /// error, not a run-time one): the navigator's health masks are 32 bits
+    /// for ports and 64 for contact slots, and the map needs room for at
+    /// least one station, wall point and junction.
+    const CAPACITY_CHECK: () = {
+        assert!(P <= 32, "FrameNavigator: P (probe ports) must be <= 32");
+        assert!(C <= 64, "FrameNavigator: C (contact slots) must be <= 64");
+        assert!(S > 0, "FrameNavigator: S (contact sensors) must be > 0");
+        assert!(W > 0, "FrameNavigator: W (wall-index points) must be > 0");
+        assert!(
+            JN > 0 && JN <= 65_535,
+            "FrameNavigator: JN (junctions) must be 1 to 65535"
+        );
+        assert!(M > 0, "FrameNavigator: M (modules) must be > 0");
+    };
+
     /// Build and validate every stage.
+    ///
+    /// The navigator is large (about 85 KB for [`DemoFrameNavigator`]) and
+    /// is returned by value; on a small stack use [`FrameNavigator::init`].
     ///
     /// # Errors
     /// [`OnboardError`] naming the stage and field at fault.
     pub fn new(config: OnboardConfig<P, M, S>) -> Result<Self, OnboardError> {
+        let () = Self::CAPACITY_CHECK;
         if config.section_every == 0 {
             return Err(OnboardError::Setting {
                 field: "section_every",
@@ -277,6 +387,25 @@ impl<
         })
     }
 
+    /// Build and validate every stage into `slot`, storage the caller owns
+    /// (a `static`, a field of a larger structure, or heap memory on the
+    /// host), and return the navigator there. The configuration is checked
+    /// the same way as by [`FrameNavigator::new`]; on error `slot` is left
+    /// uninitialised.
+    ///
+    /// Without `unsafe` the stages are still assembled before being moved
+    /// into the slot, so this bounds where the navigator lives, not the
+    /// stack used while building it; the firmware example measures that.
+    ///
+    /// # Errors
+    /// [`OnboardError`] naming the stage and field at fault.
+    pub fn init(
+        slot: &mut MaybeUninit<Self>,
+        config: OnboardConfig<P, M, S>,
+    ) -> Result<&mut Self, OnboardError> {
+        Ok(slot.write(Self::new(config)?))
+    }
+
     /// The decision stage (map, health, filter).
     #[must_use]
     pub const fn navigator(&self) -> &Navigator<P, S, ST, W, JN> {
@@ -307,7 +436,43 @@ impl<
         &self.config
     }
 
-    /// One step.
+    /// One step: one sensor frame in, one command out.
+    ///
+    /// **Reads** every channel the frame carries, each optional (a partial
+    /// frame):
+    /// - `port_pressures_pa` (with `total_temperature_k` when measured):
+    ///   one probe solve, rotated into the map frame with this frame's
+    ///   pose, or the last pose seen when the frame has none; no probe
+    ///   solve at all before the first pose;
+    /// - `contacts` (the first `contact_count`) with `joints` (the last
+    ///   joint angles seen when absent): wall points, and on the section
+    ///   and throat cadences the cross-section and throat trend;
+    /// - `pose`: the head pose for the map. A pose older than
+    ///   `nav.pose_timeout_s` (default 0.5 s) stops the robot
+    ///   ([`crate::decide::ReasonCode::HoldNoPose`]).
+    ///
+    /// **Returns** the [`Command`]: unit heading (map frame), speed in m/s
+    /// (never negative), reverse flag, operating mode, health flags, and the
+    /// decision record (reason code, standoff, section, throat, flow
+    /// numbers, speed cap, the branch comparison at a junction, and what
+    /// happened to the frame). Every number is finite.
+    ///
+    /// **Timing.** `time_s` is the robot's monotonic clock. A frame whose
+    /// time is not finite is dropped, and a frame not newer than the last
+    /// one taken is late: within `nav.reorder_window_s` (default 0.2 s) it
+    /// is marked `LateMerged`, older it is `DroppedStale`; either way the
+    /// previous command is repeated with that disposition in its record.
+    /// The tactile layer refuses the contacts of a frame earlier than the
+    /// last (counted in [`OnboardCounters::tactile_errors`]); a frame at
+    /// the same time as the last still has its wall points merged. So the
+    /// filters, health counters and decision memory only move forward in
+    /// time. Channels with non-finite or
+    /// out-of-range values are rejected one by one
+    /// (`FrameDisposition::PartlyRejected`) and the rest of the frame is
+    /// used.
+    ///
+    /// Allocates nothing, cannot panic, bounded work (see the module
+    /// documentation for the per-step budget).
     pub fn step(&mut self, frame: &SensorFrame<P, J, C>) -> Command {
         self.counters.steps = self.counters.steps.saturating_add(1);
         if let Some(p) = frame.pose {

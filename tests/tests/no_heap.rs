@@ -419,3 +419,34 @@ fn frame_navigator_does_not_allocate() {
     assert_eq!(n, 0, "frame navigator allocated {n} times");
     assert!(ok);
 }
+
+#[test]
+fn frame_navigator_init_in_place_does_not_allocate() {
+    use nav_core::frame::SensorFrame;
+    use nav_core::onboard::StandardFrameNavigator;
+    use std::mem::MaybeUninit;
+    use upcurrent_tests::frame_scene::{Conduit, FrameScene, Gait, Robot};
+    use upcurrent_tests::nav_scene::Rigid;
+    // The slot is the caller's (allocated here, outside the count).
+    let mut slot: Box<MaybeUninit<StandardFrameNavigator>> = Box::new_uninit();
+    let placement = Rigid::new([0.4, 0.1, 1.0], -0.8, [2.0, -1.0, 0.3]);
+    let (n, steps) = allocations_during(|| {
+        let mut scene = FrameScene::new(
+            Conduit::winding(),
+            Robot::DEMO,
+            Gait::ROCKING,
+            placement,
+            0.5,
+            5,
+        );
+        let nav = StandardFrameNavigator::init(&mut slot, scene.onboard_config::<8, 48>())
+            .expect("valid config");
+        for _ in 0..100u32 {
+            let f: SensorFrame<7, 7, 48> = scene.next_frame();
+            let _ = nav.step(&f);
+        }
+        nav.counters().steps
+    });
+    assert_eq!(n, 0, "init and steps allocated {n} times");
+    assert_eq!(steps, 100);
+}
