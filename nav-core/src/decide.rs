@@ -412,6 +412,10 @@ pub enum ReasonCode {
     GaveUp,
     /// Arrived: a wall across the path, and the flow comes out of it.
     HoldAtSource,
+    /// The frame's time stamp is not trusted (not finite, stale, a jump,
+    /// or a clock that stopped): stopped until it is (see
+    /// [`crate::trust`]).
+    HoldClockUntrusted,
 }
 
 /// What capped the speed.
@@ -503,6 +507,9 @@ pub enum FrameDisposition {
     DroppedStale,
     /// The time stamp was not finite: ignored; the command repeats.
     DroppedInvalid,
+    /// The time stamp jumped forward beyond the trusted limit: ignored
+    /// until a steady new clock confirms it; the robot holds.
+    DroppedClockJump,
 }
 
 /// The record of one decision: the reason and the numbers behind it.

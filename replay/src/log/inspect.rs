@@ -442,8 +442,8 @@ impl std::fmt::Display for InspectReport {
         let v = &self.salvage;
         writeln!(
             f,
-            "damage: {} places, {} bytes skipped, {} records lost",
-            v.damaged_places, v.bytes_skipped, v.records_lost
+            "damage: {} places, {} bytes skipped, {} records lost, {} repeated records skipped",
+            v.damaged_places, v.bytes_skipped, v.records_lost, v.duplicates_skipped
         )?;
         for d in &self.damage {
             writeln!(f, "  {d}")?;

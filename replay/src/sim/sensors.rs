@@ -338,8 +338,10 @@ impl Sensors {
                 });
             }
         }
-        if self.dropped(sc, t, Channel::Contacts, cn.dropout_probability) {
+        let silent = self.dropped(sc, t, Channel::Contacts, cn.dropout_probability);
+        if silent {
             frame.contacts.clear();
         }
+        frame.contacts_reported = !silent;
     }
 }
