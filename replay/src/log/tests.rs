@@ -594,6 +594,23 @@ fn payload_bytes(r: &Record) -> Vec<u8> {
     out
 }
 
+/// A log of `records` (and its end record), with the byte span of each
+/// record, the end record's last, and where the header ends.
+fn write_log_with_spans(records: &[Record]) -> (Vec<u8>, Vec<(u64, u64)>, u64) {
+    let mut w = LogWriter::new(Vec::new(), &demo_header(2)).unwrap();
+    let header_end = w.bytes_written();
+    let mut spans = Vec::new();
+    for r in records {
+        let s = w.bytes_written();
+        w.write(r).unwrap();
+        spans.push((s, w.bytes_written()));
+    }
+    let s = w.bytes_written();
+    let bytes = w.finish("proptest").unwrap();
+    spans.push((s, bytes.len() as u64));
+    (bytes, spans, header_end)
+}
+
 fn write_log(records: &[Record]) -> Vec<u8> {
     let mut w = LogWriter::new(Vec::new(), &demo_header(2)).unwrap();
     for r in records {
@@ -637,9 +654,19 @@ proptest! {
         records in proptest::collection::vec(arb_record(), 1..12),
         edits in proptest::collection::vec((any::<usize>(), any::<u8>(), 0..3u8), 1..6),
     ) {
-        let mut bytes = write_log(&records);
-        for (at, v, op) in edits {
-            let at = at % bytes.len();
+        let (mut bytes, spans, header_end) = write_log_with_spans(&records);
+        let original: Vec<Record> = {
+            let (all, err) = drain(&bytes, ReadOptions::default()).unwrap();
+            prop_assert!(err.is_none());
+            all
+        };
+        // Edits at positions of the original file, applied from the last
+        // so that each lands where it was drawn.
+        let len = bytes.len();
+        let mut edits: Vec<(usize, u8, u8)> =
+            edits.into_iter().map(|(at, v, op)| (at % len, v, op)).collect();
+        edits.sort_by(|a, b| b.0.cmp(&a.0));
+        for &(at, v, op) in &edits {
             match op {
                 0 => bytes[at] ^= v.max(1),
                 1 => bytes.insert(at, v),
@@ -649,6 +676,30 @@ proptest! {
         let (strict, salvaged) = read_any(&bytes, 1 << 16);
         prop_assert!(strict <= salvaged);
         prop_assert!(salvaged <= records.len() as u64 + 1);
+        // Every record no edit touched comes back from salvage, in order
+        // (an insertion just before a record's first byte leaves it whole).
+        let touched = |s: u64, e: u64| {
+            edits.iter().any(|&(at, _, op)| {
+                let at = at as u64;
+                if op == 1 { s < at && at < e } else { s <= at && at < e }
+            })
+        };
+        if edits.iter().any(|&(at, _, _)| (at as u64) < header_end) {
+            return Ok(()); // the header is gone: nothing can be read
+        }
+        let untouched: Vec<&Record> = original
+            .iter()
+            .zip(&spans)
+            .filter(|(_, (s, e))| !touched(*s, *e))
+            .map(|(r, _)| r)
+            .collect();
+        let (got, _, _) = salvage_all(&bytes);
+        // Compared by payload bytes: NaN fields are not equal to themselves.
+        let mut it = got.iter().map(payload_bytes);
+        for want in untouched {
+            let w = payload_bytes(want);
+            prop_assert!(it.any(|g| g == w), "untouched record lost: {:?}", want);
+        }
     }
 }
 
