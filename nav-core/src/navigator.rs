@@ -637,9 +637,9 @@ pub struct Navigator<
     state: DecideState,
     pose: Option<HeadPose>,
     pose_time_s: f64,
-    /// The last accepted pose (kept past the pose timeout, for the jump
-    /// check).
-    good_pose: Option<HeadPose>,
+    /// Position of the last accepted pose (kept past the pose timeout,
+    /// for the jump check), m.
+    good_position_m: Option<[f64; 3]>,
     clock: FrameClock,
     last: Option<Command>,
     steps: u64,
@@ -683,7 +683,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             },
             pose: None,
             pose_time_s: f64::NEG_INFINITY,
-            good_pose: None,
+            good_position_m: None,
             clock: FrameClock::new(c.clock, c.reorder_window_s),
             last: None,
             steps: 0,
@@ -724,7 +724,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
         self.cfg.pose_limits.plausible(
             pose,
             time_s,
-            self.good_pose.as_ref().map(|p| (p, self.pose_time_s)),
+            self.good_position_m.map(|p| (p, self.pose_time_s)),
         )
     }
 
@@ -874,7 +874,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             Some(p) if self.pose_plausible(&p, t) => {
                 self.track_head_velocity(p.position_m, t);
                 self.pose = Some(p);
-                self.good_pose = Some(p);
+                self.good_position_m = Some(p.position_m);
                 self.pose_time_s = t;
             }
             Some(_) => disp = FrameDisposition::PartlyRejected,
