@@ -665,7 +665,7 @@ proptest! {
         let len = bytes.len();
         let mut edits: Vec<(usize, u8, u8)> =
             edits.into_iter().map(|(at, v, op)| (at % len, v, op)).collect();
-        edits.sort_by(|a, b| b.0.cmp(&a.0));
+        edits.sort_by_key(|e| std::cmp::Reverse(e.0));
         for &(at, v, op) in &edits {
             match op {
                 0 => bytes[at] ^= v.max(1),
