@@ -417,6 +417,10 @@ pub enum ReasonCode {
     /// waits out its recovery dwell before it moves. (Last, so the codes
     /// before it keep their numbers in digests.)
     HoldModeSettling,
+    /// The frame's time stamp is not trusted (not finite, stale, a jump,
+    /// or a clock that stopped): stopped until it is (see
+    /// [`crate::trust`]).
+    HoldClockUntrusted,
 }
 
 /// What capped the speed.
@@ -508,6 +512,9 @@ pub enum FrameDisposition {
     DroppedStale,
     /// The time stamp was not finite: ignored; the command repeats.
     DroppedInvalid,
+    /// The time stamp jumped forward beyond the trusted limit: ignored
+    /// until a steady new clock confirms it; the robot holds.
+    DroppedClockJump,
 }
 
 /// The record of one decision: the reason and the numbers behind it.

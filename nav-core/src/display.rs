@@ -417,6 +417,7 @@ impl ConfigField {
             Self::Ridge => "ridge",
             Self::StationSpacing => "station_spacing_m",
             Self::FrameTiming => "reorder_window_s / pose_timeout_s",
+            Self::PoseLimits => "pose_limits",
             Self::Capacity => "capacity (const generic)",
         }
     }

@@ -1,7 +1,9 @@
 //! The sensor frame: everything the robot reports in one sample.
 //!
-//! A frame may be partial: any channel may be absent (`None`, or a contact
-//! count of zero) when that sensor dropped a sample. Capacities are const
+//! A frame may be partial: any channel may be absent (`None`) when that
+//! sensor dropped a sample. The contact channel says so itself:
+//! `contacts_reported` tells a skin that reported and feels nothing (a
+//! quiet skin) from one that did not report (a dead or silent skin). Capacities are const
 //! generics: `P` probe ports, `J` joints, `C` contact slots.
 //!
 //! Frames, by name:
@@ -66,6 +68,11 @@ pub struct SensorFrame<const P: usize, const J: usize, const C: usize> {
     pub contacts: [Contact; C],
     /// Number of valid entries in `contacts`.
     pub contact_count: usize,
+    /// The contact channel reported this sample (its heartbeat). With no
+    /// contacts, `true` means nothing touches the skin; `false` means the
+    /// skin said nothing. A frame with contacts counts as reported
+    /// whatever this says.
+    pub contacts_reported: bool,
 }
 
 impl<const P: usize, const J: usize, const C: usize> SensorFrame<P, J, C> {
@@ -80,6 +87,7 @@ impl<const P: usize, const J: usize, const C: usize> SensorFrame<P, J, C> {
             total_temperature_k: None,
             contacts: [Contact::default(); C],
             contact_count: 0,
+            contacts_reported: false,
         }
     }
 
@@ -91,13 +99,22 @@ impl<const P: usize, const J: usize, const C: usize> SensorFrame<P, J, C> {
             .unwrap_or(&self.contacts)
     }
 
-    /// Append a contact. Returns `false` (and changes nothing) when the
-    /// frame's contact slots are full.
+    /// Whether the contact channel reported: it says so, or it reported
+    /// contacts.
+    #[must_use]
+    pub const fn skin_reported(&self) -> bool {
+        self.contacts_reported || self.contact_count > 0
+    }
+
+    /// Append a contact (the contact channel then counts as reported).
+    /// Returns `false` (and changes nothing) when the frame's contact
+    /// slots are full.
     pub fn push_contact(&mut self, c: Contact) -> bool {
         match self.contacts.get_mut(self.contact_count) {
             Some(slot) => {
                 *slot = c;
                 self.contact_count += 1;
+                self.contacts_reported = true;
                 true
             }
             None => false,
@@ -110,6 +127,14 @@ mod tests {
     use super::*;
 
     #[test]
+    fn an_empty_frame_has_a_silent_skin() {
+        let mut f: SensorFrame<7, 2, 2> = SensorFrame::empty(0.0);
+        assert!(!f.skin_reported());
+        f.contacts_reported = true;
+        assert!(f.skin_reported());
+    }
+
+    #[test]
     fn push_until_full() {
         let mut f: SensorFrame<7, 2, 2> = SensorFrame::empty(0.0);
         assert!(f.push_contact(Contact::default()));
@@ -118,6 +143,7 @@ mod tests {
             ..Contact::default()
         }));
         assert!(!f.push_contact(Contact::default()));
+        assert!(f.contacts_reported && f.skin_reported());
         assert_eq!(f.contacts().len(), 2);
         assert_eq!(f.contacts()[1].force_n, 2.0);
     }

@@ -55,3 +55,4 @@ pub mod onboard;
 pub mod probe;
 pub mod ridge;
 pub mod tactile;
+pub mod trust;

@@ -19,6 +19,12 @@
 //! decision memory are time-ordered. Older frames are dropped as stale. In
 //! both cases the previous command is repeated with the frame's
 //! disposition in its record. A frame with a non-finite time is dropped.
+//! Which stamps are trusted, and for how long a late frame may repeat a
+//! moving command, is [`crate::trust`]'s call: a frame it does not trust
+//! (not finite, stale, a forward jump, a clock that stopped) never keeps
+//! the robot moving: the command holds
+//! ([`ReasonCode::HoldClockUntrusted`]) until stamps are trusted again.
+//! Poses are checked for plausibility there too.
 //! Channels with non-finite or out-of-range values are rejected one by
 //! one (`FrameDisposition::PartlyRejected`), the rest of the frame is used.
 
@@ -33,6 +39,7 @@ use crate::map::{
     FlowEstimate, Junction, LocalMap, Section, Station, WallIndex, add, disc_area_m2, dist_sq, dot,
     finite3, head_forward_map, mass_flux_proxy, scale, sub, unit,
 };
+use crate::trust::{ClockConfig, ClockVerdict, FrameClock, PoseLimits};
 
 /// One step's input: what the probe and tactile layers made of one sensor
 /// frame, already in the map frame.
@@ -53,7 +60,9 @@ pub struct Observation {
 #[derive(Debug, Clone, Copy, PartialEq)]
 #[cfg_attr(feature = "serde", derive(serde::Serialize))]
 pub struct Command {
-    /// Frame time, s.
+    /// Frame time on the navigator's clock, s: the frame's stamp, plus the
+    /// offset of any re-anchor after a clock reset or jump
+    /// ([`crate::trust`]).
     pub time_s: f64,
     /// Direction of motion of the head, unit, map frame.
     pub heading_map: [f64; 3],
@@ -158,6 +167,10 @@ pub struct NavConfig {
     pub reorder_window_s: f64,
     /// A pose older than this stops the robot, s.
     pub pose_timeout_s: f64,
+    /// Which frame stamps are trusted (see [`crate::trust`]).
+    pub clock: ClockConfig,
+    /// Which head poses are plausible (see [`crate::trust`]).
+    pub pose_limits: PoseLimits,
 }
 
 /// Which configuration field is wrong.
@@ -211,8 +224,10 @@ pub enum ConfigField {
     Ridge,
     /// `station_spacing_m`.
     StationSpacing,
-    /// `reorder_window_s` / `pose_timeout_s`.
+    /// `reorder_window_s` / `pose_timeout_s` / `clock.*`.
     FrameTiming,
+    /// `pose_limits.*`.
+    PoseLimits,
     /// A capacity const generic (`P > 32`, `C > 64`, or `S`, `W`, `JN` zero).
     Capacity,
 }
@@ -309,6 +324,8 @@ impl NavConfig {
             station_spacing_m: 2.0 * r,
             reorder_window_s: 0.2,
             pose_timeout_s: 0.5,
+            clock: ClockConfig::DEFAULT,
+            pose_limits: PoseLimits::DEFAULT,
         }
     }
 
@@ -393,6 +410,16 @@ impl NavConfig {
         pos(F::StationSpacing, self.station_spacing_m)?;
         nonneg(F::FrameTiming, self.reorder_window_s)?;
         pos(F::FrameTiming, self.pose_timeout_s)?;
+        check(
+            F::FrameTiming,
+            self.clock.max_forward_jump_s,
+            self.clock.is_valid(),
+        )?;
+        check(
+            F::PoseLimits,
+            self.pose_limits.max_abs_position_m,
+            self.pose_limits.is_valid(),
+        )?;
         Ok(ValidConfig(*self))
     }
 }
@@ -533,28 +560,36 @@ fn to_arr(m: &nalgebra::Matrix3<f64>) -> [[f64; 3]; 3] {
     crate::decide::mat3_to_arr(m)
 }
 
-fn pose_ok(p: &HeadPose) -> bool {
-    let q = p.orientation_wxyz;
-    let n2 = q[0] * q[0] + q[1] * q[1] + q[2] * q[2] + q[3] * q[3];
-    finite3(p.position_m) && q.iter().all(|v| v.is_finite()) && n2 > 1e-12 && n2.is_finite()
-}
+/// Plausibility limits on a flow observation and a section, beyond which
+/// a finite number is still absurd and would overflow the arithmetic
+/// downstream (squares, traces): a direction variance of 1e3 rad^2 (far
+/// past uninformative), a dynamic pressure or its sigma of 1e9 Pa, a
+/// density of 1e5 kg/m^3, a section of 1e6 m (the map's size, see
+/// [`PoseLimits`]). Common practice margins, not from a published source.
+const MAX_DIR_COV_RAD2: f64 = 1.0e3;
+const MAX_PRESSURE_PA: f64 = 1.0e9;
+const MAX_DENSITY_KG_PER_M3: f64 = 1.0e5;
+const MAX_SECTION_M: f64 = 1.0e6;
 
 fn flow_dir_ok(o: &FlowObservation) -> Option<[f64; 3]> {
     let dir = o.velocity_dir_map?;
-    let cov_ok = o
+    let cov_ok = o.dir_cov_map.iter().all(|r| {
+        r.iter()
+            .all(|v| v.is_finite() && v.abs() <= MAX_DIR_COV_RAD2)
+    }) && o
         .dir_cov_map
         .iter()
-        .all(|r| r.iter().all(|v| v.is_finite()))
-        && o.dir_cov_map
-            .iter()
-            .enumerate()
-            .all(|(i, r)| r.get(i).is_some_and(|v| *v >= 0.0));
+        .enumerate()
+        .all(|(i, r)| r.get(i).is_some_and(|v| *v >= 0.0));
     let scalars_ok = o.dynamic_pressure_pa.is_finite()
         && o.dynamic_pressure_pa >= 0.0
+        && o.dynamic_pressure_pa <= MAX_PRESSURE_PA
         && o.dynamic_pressure_sigma_pa.is_finite()
         && o.dynamic_pressure_sigma_pa >= 0.0
+        && o.dynamic_pressure_sigma_pa <= MAX_PRESSURE_PA
         && o.density_kg_per_m3.is_finite()
-        && o.density_kg_per_m3 > 0.0;
+        && o.density_kg_per_m3 > 0.0
+        && o.density_kg_per_m3 <= MAX_DENSITY_KG_PER_M3;
     if cov_ok && scalars_ok {
         unit(dir)
     } else {
@@ -565,18 +600,21 @@ fn flow_dir_ok(o: &FlowObservation) -> Option<[f64; 3]> {
 fn section_ok(s: &Section) -> bool {
     match *s {
         Section::Unknown => true,
-        Section::LowerBoundOnly { min_radius_m } => min_radius_m.is_finite() && min_radius_m >= 0.0,
+        Section::LowerBoundOnly { min_radius_m } => {
+            min_radius_m.is_finite() && (0.0..=MAX_SECTION_M).contains(&min_radius_m)
+        }
         Section::Circle {
             centre_m,
             radius_m,
             centre_sigma_m,
             radius_sigma_m,
         } => {
-            finite3(centre_m)
-                && radius_m.is_finite()
+            let within = |v: f64| v.is_finite() && v.abs() <= MAX_SECTION_M;
+            centre_m.iter().all(|v| within(*v))
+                && within(radius_m)
                 && radius_m > 0.0
-                && centre_sigma_m.is_finite()
-                && radius_sigma_m.is_finite()
+                && within(centre_sigma_m)
+                && within(radius_sigma_m)
         }
     }
 }
@@ -602,7 +640,10 @@ pub struct Navigator<
     state: DecideState,
     pose: Option<HeadPose>,
     pose_time_s: f64,
-    last_time_s: f64,
+    /// Position of the last accepted pose (kept past the pose timeout,
+    /// for the jump check), m.
+    good_position_m: Option<[f64; 3]>,
+    clock: FrameClock,
     last: Option<Command>,
     steps: u64,
     heading_set: bool,
@@ -645,7 +686,8 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             },
             pose: None,
             pose_time_s: f64::NEG_INFINITY,
-            last_time_s: f64::NEG_INFINITY,
+            good_position_m: None,
+            clock: FrameClock::new(c.clock, c.reorder_window_s),
             last: None,
             steps: 0,
             heading_set: false,
@@ -672,6 +714,23 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
     pub const fn decide_state(&self) -> &DecideState {
         &self.state
     }
+    /// The frame-stamp judge.
+    #[must_use]
+    pub const fn clock(&self) -> &FrameClock {
+        &self.clock
+    }
+
+    /// Whether `pose`, stamped at navigator time `time_s`, is plausible
+    /// after the last accepted pose (see [`PoseLimits`]).
+    #[must_use]
+    pub fn pose_plausible(&self, pose: &HeadPose, time_s: f64) -> bool {
+        self.cfg.pose_limits.plausible(
+            pose,
+            time_s,
+            self.good_position_m.map(|p| (p, self.pose_time_s)),
+        )
+    }
+
     /// The configuration in force.
     #[must_use]
     pub const fn config(&self) -> &NavConfig {
@@ -763,33 +822,62 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
         }
     }
 
+    /// The previous command with zero speed: the frame's stamp is not
+    /// trusted.
+    fn hold_untrusted(&self, time_s: f64, disp: FrameDisposition) -> Command {
+        let mut c = self.repeat(time_s, disp);
+        c.speed_m_per_s = 0.0;
+        c.reverse = false;
+        c.mode = OperatingMode::Hold;
+        c.record.reason = ReasonCode::HoldClockUntrusted;
+        c.record.speed_limit = SpeedLimit::Stopped;
+        c
+    }
+
+    /// Judge a frame's stamp (see [`crate::trust`]). [`Self::step`] does
+    /// this itself; a caller that needs the verdict before it prepares the
+    /// observation (as [`crate::onboard::FrameNavigator`] does) calls this
+    /// once per frame and then [`Self::step_judged`].
+    pub fn judge_time(&mut self, raw_time_s: f64) -> ClockVerdict {
+        self.clock.judge(raw_time_s)
+    }
+
     /// One step. Never panics; every output number is finite.
     pub fn step(&mut self, obs: &Observation) -> Command {
-        let t = obs.time_s;
-        if !t.is_finite() {
-            return self.repeat(t, FrameDisposition::DroppedInvalid);
-        }
-        if self.steps > 0 && t <= self.last_time_s {
-            if self.last_time_s - t <= self.cfg.reorder_window_s {
+        let v = self.clock.judge(obs.time_s);
+        self.step_judged(obs, v)
+    }
+
+    /// One step on a frame whose stamp [`Self::judge_time`] has judged
+    /// (`verdict` must be that call's answer for `obs.time_s`). The
+    /// observation's own `time_s` is not read: the verdict's time is used.
+    pub fn step_judged(&mut self, obs: &Observation, verdict: ClockVerdict) -> Command {
+        let t = match verdict {
+            ClockVerdict::Hold(d) => return self.hold_untrusted(obs.time_s, d),
+            ClockVerdict::Late { repeat_ok, .. } => {
                 if let Some(w) = &obs.wall {
                     for p in w.wall_points() {
                         let _ = self.map.walls.insert(*p);
                     }
                 }
-                return self.repeat(t, FrameDisposition::LateMerged);
+                return if repeat_ok {
+                    self.repeat(obs.time_s, FrameDisposition::LateMerged)
+                } else {
+                    self.hold_untrusted(obs.time_s, FrameDisposition::LateMerged)
+                };
             }
-            return self.repeat(t, FrameDisposition::DroppedStale);
-        }
+            ClockVerdict::Use { time_s, .. } => time_s,
+        };
         self.steps = self.steps.saturating_add(1);
-        self.last_time_s = t;
         let mut disp = FrameDisposition::Used;
         let dcfg = self.cfg.decide;
 
         // Pose.
         match obs.pose {
-            Some(p) if pose_ok(&p) => {
+            Some(p) if self.pose_plausible(&p, t) => {
                 self.track_head_velocity(p.position_m, t);
                 self.pose = Some(p);
+                self.good_position_m = Some(p.position_m);
                 self.pose_time_s = t;
             }
             Some(_) => disp = FrameDisposition::PartlyRejected,

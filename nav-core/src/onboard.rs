@@ -51,6 +51,7 @@ use crate::tactile::{
     OpeningSettings, SectionEstimate, SectionSettings, SectionShape, TactileConfig, TactileError,
     TactileMap, ThroatSettings, ThroatStatus,
 };
+use crate::trust::ClockVerdict;
 
 /// Steps between fits with every port while some are excluded as failed
 /// (1 s at 100 Hz).
@@ -177,6 +178,12 @@ pub struct OnboardCounters {
     pub section_fits: u64,
     /// Probe fits that left failed ports out.
     pub fits_without_failed_ports: u64,
+    /// Frames whose time stamp was not trusted (no stage ran).
+    pub untrusted_frames: u64,
+    /// Poses refused as implausible (see [`crate::trust::PoseLimits`]).
+    pub implausible_poses: u64,
+    /// Frames whose contact channel did not report (a silent skin).
+    pub silent_skin_frames: u64,
 }
 
 /// The navigator as embedded: frames in, commands out.
@@ -471,17 +478,56 @@ impl<
     /// (`FrameDisposition::PartlyRejected`) and the rest of the frame is
     /// used.
     ///
+    /// **Clock trust.** The frame's stamp is judged first ([`crate::trust`]):
+    /// a frame whose stamp is not trusted (not finite, stale, a jump, a
+    /// stopped clock) reaches no stage and the command holds
+    /// ([`crate::decide::ReasonCode::HoldClockUntrusted`]); after a
+    /// re-anchor every stage sees the navigator's time. A pose the
+    /// navigator finds implausible is not used by any stage either.
+    ///
     /// Allocates nothing, cannot panic, bounded work (see the module
     /// documentation for the per-step budget).
     pub fn step(&mut self, frame: &SensorFrame<P, J, C>) -> Command {
         self.counters.steps = self.counters.steps.saturating_add(1);
-        if let Some(p) = frame.pose {
+        let verdict = self.nav.judge_time(frame.time_s);
+        let time_s = match verdict {
+            ClockVerdict::Hold(_) => {
+                self.counters.untrusted_frames = self.counters.untrusted_frames.saturating_add(1);
+                let obs = crate::navigator::Observation {
+                    time_s: frame.time_s,
+                    pose: None,
+                    flow: None,
+                    wall: None,
+                };
+                return self.nav.step_judged(&obs, verdict);
+            }
+            ClockVerdict::Late { time_s, .. } | ClockVerdict::Use { time_s, .. } => time_s,
+        };
+        if time_s.to_bits() == frame.time_s.to_bits() {
+            self.step_at(frame, verdict)
+        } else {
+            // Re-anchored clock: the stages see the navigator's time (a
+            // copy, only on this rare path).
+            let mut shifted = *frame;
+            shifted.time_s = time_s;
+            self.step_at(&shifted, verdict)
+        }
+    }
+
+    fn step_at(&mut self, frame: &SensorFrame<P, J, C>, verdict: ClockVerdict) -> Command {
+        let frame_pose = frame
+            .pose
+            .filter(|p| self.nav.pose_plausible(p, frame.time_s));
+        if frame.pose.is_some() && frame_pose.is_none() {
+            self.counters.implausible_poses = self.counters.implausible_poses.saturating_add(1);
+        }
+        if let Some(p) = frame_pose {
             self.last_pose = Some(p);
         }
         if let Some(j) = frame.joints {
             self.last_joints = Some(j);
         }
-        let pose = frame.pose.or(self.last_pose);
+        let pose = frame_pose.or(self.last_pose);
         let flow = match (frame.port_pressures_pa.as_ref(), pose.as_ref()) {
             (Some(pr), Some(pose)) => {
                 Some(self.flow_observation(pr, frame.total_temperature_k, pose))
@@ -496,7 +542,7 @@ impl<
         };
         // Built in place: the observation is about a kilobyte.
         self.wall_observation(frame, pose.as_ref(), &mut obs.wall);
-        self.nav.step(&obs)
+        self.nav.step_judged(&obs, verdict)
     }
 
     fn flow_observation(
@@ -600,6 +646,13 @@ impl<
         out: &mut Option<WallObservation>,
     ) {
         *out = None;
+        if !frame.skin_reported() {
+            // The contact channel is silent: nothing is known of the walls
+            // this frame (not the same as a quiet skin, which reported that
+            // nothing touches).
+            self.counters.silent_skin_frames = self.counters.silent_skin_frames.saturating_add(1);
+            return;
+        }
         if frame.contact_count > 0 {
             if self.tactile.ingest(frame, &self.body).is_err() {
                 self.counters.tactile_errors = self.counters.tactile_errors.saturating_add(1);

@@ -1068,6 +1068,7 @@ pub fn import_csv<R: BufRead, W: Write>(
             port_pressures_pa: None,
             total_temperature_k: None,
             contacts: Vec::new(),
+            contacts_reported: true,
         };
         if let Some((bs, p)) = &ports {
             let vals = bs

@@ -59,6 +59,10 @@ pub struct FrameRecord {
     pub total_temperature_k: Option<f64>,
     /// Contacts this sample.
     pub contacts: Vec<ContactRecord>,
+    /// The contact channel reported this sample (with no contacts: a
+    /// quiet skin; `false`: the skin was silent). Logs of format version 1
+    /// do not carry it and read as `true`.
+    pub contacts_reported: bool,
 }
 
 /// Why a [`FrameRecord`] does not fit a fixed-capacity frame.
@@ -140,6 +144,7 @@ impl FrameRecord {
             f.port_pressures_pa = Some(arr);
         }
         f.total_temperature_k = self.total_temperature_k;
+        f.contacts_reported = self.contacts_reported;
         if self.contacts.len() > C {
             return Err(FitError::TooManyContacts {
                 got: self.contacts.len(),
@@ -190,6 +195,7 @@ impl FrameRecord {
                     normal_module: c.normal_module,
                 })
                 .collect(),
+            contacts_reported: f.skin_reported(),
         }
     }
 }
@@ -305,6 +311,7 @@ mod tests {
                 force_n: 3.5,
                 normal_module: Some([0.0, 1.0, 0.0]),
             }],
+            contacts_reported: true,
         }
     }
 

@@ -6,8 +6,16 @@ Regenerate (from the workspace root):
     python3 tests/reference/probe_reference.py
 
 It writes tests/reference/probe_cases.json, read by
-tests/tests/probe_reference.rs, and prints scipy's time per solve for the
-speed comparison with `cargo run --release -p nav-core --example probe_accuracy`.
+tests/tests/probe_reference.rs, and prints scipy's time per solve.
+
+For the speed comparison, time scipy and the Rust solver side by side in
+the same session (the stored time in the JSON is a record, not a figure):
+
+    us=$(python3 tests/reference/probe_reference.py --time)
+    cargo run --release -p nav-core --example probe_accuracy -- --scipy-us-per-solve "$us"
+
+`--time` only times least_squares on the probe_accuracy problem (no file
+is written) and prints the microseconds per solve alone on its line.
 
 Made with: Python 3 (see "meta" in the JSON), numpy and scipy versions
 recorded in the JSON's "meta" block (first committed with scipy 1.17.1,
@@ -251,6 +259,9 @@ def timing(rng, count=2000):
 
 
 def main():
+    if len(sys.argv) == 2 and sys.argv[1] == "--time":
+        print(f"{timing(np.random.default_rng(SEED))['scipy_us_per_solve']:.2f}")
+        return 0
     rng = np.random.default_rng(SEED)
     cases = []
     cases += make_cases(rng, "incompressible_7port", 7, 40.0, "incompressible", 30, 60.0,

@@ -467,7 +467,28 @@ proptest! {
             if c.mode == OperatingMode::Hold {
                 prop_assert_eq!(c.speed_m_per_s, 0.0);
             }
-            let _ = dot(c.heading_map, c.heading_map);
+            let r = &c.record;
+            let numbers = [
+                r.time_s,
+                r.required_standoff_m,
+                r.flow_dir_sigma_rad,
+                r.dynamic_pressure_pa,
+                r.flow_weak_for_s,
+            ];
+            prop_assert!(numbers.iter().all(|v| v.is_finite()), "{:?}", r);
+            let options = [
+                r.standoff_m,
+                r.section_radius_m,
+                r.centre_offset_m,
+                r.nearest_wall_m,
+                r.throat_diameter_m,
+                r.throat_distance_m,
+                r.ridge_gradient_per_m,
+            ];
+            prop_assert!(options.iter().flatten().all(|v| v.is_finite()), "{:?}", r);
+            if let Some(u) = r.upstream_map {
+                prop_assert!((dot(u, u) - 1.0).abs() < 1e-9, "{:?}", u);
+            }
         }
     }
 }

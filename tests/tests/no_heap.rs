@@ -450,3 +450,37 @@ fn frame_navigator_init_in_place_does_not_allocate() {
     assert_eq!(n, 0, "init and steps allocated {n} times");
     assert_eq!(steps, 100);
 }
+
+#[test]
+fn stamp_and_pose_checks_do_not_allocate() {
+    use nav_core::frame::HeadPose;
+    use nav_core::trust::{ClockConfig, ClockVerdict, FrameClock, PoseLimits};
+    let (n, used) = allocations_during(|| {
+        let mut clock = FrameClock::new(ClockConfig::DEFAULT, 0.2);
+        let limits = PoseLimits::DEFAULT;
+        let pose = HeadPose {
+            position_m: [1.0, 2.0, 3.0],
+            orientation_wxyz: [1.0, 0.0, 0.0, 0.0],
+            position_sigma_m: 0.01,
+            attitude_sigma_rad: 0.01,
+        };
+        let mut used = 0u32;
+        for k in 0..400u32 {
+            // Ordinary, then NaN, stuck, reset and jumped stamps.
+            let t = match k / 80 {
+                0 => f64::from(k) * 0.01,
+                1 => f64::NAN,
+                2 => 0.79,
+                3 => f64::from(k - 240) * 0.01,
+                _ => 1.0e6 + f64::from(k) * 0.01,
+            };
+            if matches!(clock.judge(t), ClockVerdict::Use { .. }) {
+                used += 1;
+            }
+            let _ = limits.plausible(&pose, t, Some((pose.position_m, 0.0)));
+        }
+        used
+    });
+    assert_eq!(n, 0, "stamp and pose checks allocated {n} times");
+    assert!(used > 80, "{used} frames used");
+}

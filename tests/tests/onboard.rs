@@ -93,8 +93,15 @@ fn heading_points_upstream_once_the_filter_settles() {
         // flow, and with no clearance known it goes at the feel speed.
         assert_eq!(c.record.reason, ReasonCode::FollowUpstream, "{c:?}");
         assert_eq!(c.health.tactile, ChannelState::Ok);
-        assert!(c.speed_m_per_s > 0.0);
-        assert!(c.speed_m_per_s <= nav.navigator().config().decide.feel_speed_m_per_s);
+        // At the feel speed itself, not a creep or a slower cap.
+        let d = nav.navigator().config().decide;
+        assert!(d.feel_speed_m_per_s > d.creep_speed_m_per_s);
+        assert_eq!(
+            c.record.speed_limit,
+            nav_core::decide::SpeedLimit::Feel,
+            "{c:?}"
+        );
+        assert_eq!(c.speed_m_per_s, d.feel_speed_m_per_s, "{c:?}");
         checked += 1;
     }
     assert_eq!(checked, 200);

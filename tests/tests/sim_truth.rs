@@ -61,7 +61,27 @@ fn standoff_from_wall_samples_matches_geometry() {
         assert!(d >= 0.3 - rho - 1e-9, "{d}");
         assert!(d <= 0.3 - rho + 0.0071, "{d} at {x} {y} {z}");
     }
-    // Every sample lies on the wall.
+    // Every sample lies on the wall: none inside the tube (seen from the
+    // axis, every millimetre along it away from the end caps, the nearest
+    // sample is a full radius away) and none outside it (seen from 0.2 m
+    // into the rock, every 5 mm and every 1/128 turn, the nearest sample
+    // is at least 0.2 m away).
+    for i in 0..5400 {
+        let x = 0.3 + 0.001 * f64::from(i);
+        let d = w.distance_m([x, 0.0, 0.0]);
+        assert!(d >= 0.3 - 1e-9, "a sample {d} m from the axis at x = {x}");
+    }
+    for i in 0..1080 {
+        let x = 0.3 + 0.005 * f64::from(i);
+        for k in 0..128 {
+            let a = std::f64::consts::TAU * f64::from(k) / 128.0;
+            let d = w.distance_m([x, 0.5 * a.cos(), 0.5 * a.sin()]);
+            assert!(
+                d >= 0.2 - 1e-9,
+                "a sample outside the wall near x = {x}, {a} rad"
+            );
+        }
+    }
     let g = &sim.world().geometry;
     let o = sim.outcome();
     // Start at 0.1 m off axis: standoff 0.3 - 0.1 - 0.05 (head radius).

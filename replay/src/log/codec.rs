@@ -14,8 +14,8 @@
 //! the header comes back bit for bit.
 
 use bincode::config::{self, Configuration, Limit, LittleEndian, Varint};
-use serde::Serialize;
 use serde::de::DeserializeOwned;
+use serde::{Deserialize, Serialize};
 
 use super::LogHeader;
 use crate::record::{ContactRecord, FrameRecord, JointRecord, PoseRecord};
@@ -104,9 +104,54 @@ pub fn decode_frame_payload(bytes: &[u8]) -> Result<FrameRecord, CodecError> {
     decode_payload(bytes)
 }
 
+/// A frame payload of format version 1: the fields of [`FrameRecord`]
+/// without the contact heartbeat, in the same order.
+#[derive(Deserialize)]
+struct FrameRecordV1 {
+    time_s: f64,
+    pose: Option<PoseRecord>,
+    joints: Option<Vec<JointRecord>>,
+    port_pressures_pa: Option<Vec<f64>>,
+    total_temperature_k: Option<f64>,
+    contacts: Vec<ContactRecord>,
+}
+
+/// Decode a frame payload written by format `version` (1 or 2; see
+/// [`super::format::VERSION`]). A version 1 frame reads with
+/// `contacts_reported = true`.
+///
+/// # Errors
+/// As [`decode_payload`].
+pub fn decode_frame_payload_version(bytes: &[u8], version: u16) -> Result<FrameRecord, CodecError> {
+    if version >= 2 {
+        return decode_frame_payload(bytes);
+    }
+    if bytes.len() <= DIRECT_FRAME_MAX_BYTES
+        && let Some(frame) = direct_frame_layout(bytes, false)
+    {
+        return Ok(frame);
+    }
+    let v1: FrameRecordV1 = decode_payload(bytes)?;
+    Ok(FrameRecord {
+        time_s: v1.time_s,
+        pose: v1.pose,
+        joints: v1.joints,
+        port_pressures_pa: v1.port_pressures_pa,
+        total_temperature_k: v1.total_temperature_k,
+        contacts: v1.contacts,
+        contacts_reported: true,
+    })
+}
+
 /// The direct reader of [`decode_frame_payload`]; `None` for anything it
 /// does not take.
 pub fn direct_frame(bytes: &[u8]) -> Option<FrameRecord> {
+    direct_frame_layout(bytes, true)
+}
+
+/// The direct reader, for the current layout (`heartbeat`: the trailing
+/// contact-heartbeat flag) or the version 1 layout (without it).
+fn direct_frame_layout(bytes: &[u8], heartbeat: bool) -> Option<FrameRecord> {
     let mut c = Cursor { bytes };
     let time_s = c.f64()?;
     let pose = if c.flag()? {
@@ -158,6 +203,7 @@ pub fn direct_frame(bytes: &[u8]) -> Option<FrameRecord> {
             },
         });
     }
+    let contacts_reported = if heartbeat { c.flag()? } else { true };
     c.bytes.is_empty().then_some(FrameRecord {
         time_s,
         pose,
@@ -165,6 +211,7 @@ pub fn direct_frame(bytes: &[u8]) -> Option<FrameRecord> {
         port_pressures_pa,
         total_temperature_k,
         contacts,
+        contacts_reported,
     })
 }
 

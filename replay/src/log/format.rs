@@ -3,8 +3,14 @@
 
 /// File magic: the first 8 bytes of every log.
 pub const MAGIC: [u8; 8] = *b"UPCURLOG";
-/// The format version this code writes and reads.
-pub const VERSION: u16 = 1;
+/// The format version this code writes (and the newest it reads).
+/// Version 2 added the contact channel's heartbeat to frame payloads
+/// (`FrameRecord::contacts_reported`, one flag byte at the end).
+pub const VERSION: u16 = 2;
+/// The oldest format version this code reads. Version 1 frame payloads
+/// have no heartbeat flag; their frames read with `contacts_reported =
+/// true` (what a version 1 reader assumed of a frame without contacts).
+pub const OLDEST_READ_VERSION: u16 = 1;
 /// Size of the fixed part of the file header (magic, version, flags,
 /// header length, header CRC), bytes.
 pub const FILE_PREFIX_BYTES: usize = 20;

@@ -483,10 +483,11 @@ impl std::fmt::Display for InspectReport {
         let v = &self.salvage;
         writeln!(
             f,
-            "damage: {}, {} bytes skipped, {} lost",
+            "damage: {}, {} bytes skipped, {} lost, {} skipped",
             plural(v.damaged_places, "place", "places"),
             v.bytes_skipped,
-            plural(v.records_lost, "record", "records")
+            plural(v.records_lost, "record", "records"),
+            plural(v.duplicates_skipped, "repeated record", "repeated records")
         )?;
         for d in &self.damage {
             writeln!(f, "  {d}")?;

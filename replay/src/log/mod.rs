@@ -214,6 +214,14 @@ pub enum DamageKind {
         /// Sequence number found.
         found: u64,
     },
+    /// Intact records whose sequence numbers were already read: a block
+    /// repeated in the file. Salvage skips them (nothing is lost).
+    Duplicate {
+        /// First repeated sequence number.
+        first_seq: u64,
+        /// Consecutive repeated records at this place.
+        records: u64,
+    },
     /// Bytes after the end record.
     AfterEnd,
 }
@@ -252,7 +260,11 @@ impl std::fmt::Display for DamageKind {
         match self {
             Self::BadMagic { found } => write!(f, "not an Upcurrent log (magic {found:02x?})"),
             Self::UnsupportedVersion { found, supported } => {
-                write!(f, "format version {found}, this reader reads {supported}")
+                write!(
+                    f,
+                    "format version {found}, this reader reads versions {} to {supported}",
+                    format::OLDEST_READ_VERSION
+                )
             }
             Self::BadHeader { reason } => write!(f, "bad header: {reason}"),
             Self::Truncated { partial_bytes: 0 } => {
@@ -279,6 +291,11 @@ impl std::fmt::Display for DamageKind {
             Self::OutOfSequence { expected, found } => {
                 write!(f, "sequence number {found}, expected {expected}")
             }
+            Self::Duplicate { first_seq, records } => write!(
+                f,
+                "{records} repeated record(s), sequence numbers {first_seq}..={} already read",
+                first_seq + records.saturating_sub(1)
+            ),
             Self::AfterEnd => f.write_str("bytes after the end record"),
         }
     }

@@ -62,6 +62,9 @@ pub struct SalvageStats {
     /// Damage reports not kept because [`LogReader::MAX_LISTED_DAMAGE`] were
     /// already listed.
     pub damage_not_listed: u64,
+    /// Intact records skipped because their sequence number was already
+    /// read (a repeated block; [`DamageKind::Duplicate`]). Not lost.
+    pub duplicates_skipped: u64,
 }
 
 /// Reads a log from any [`Read`], one record at a time, in memory bounded by
@@ -79,6 +82,7 @@ pub struct LogReader<R: Read> {
     opts: ReadOptions,
     header: LogHeader,
     header_bytes: u64,
+    version: u16,
     expected_seq: u64,
     after_damage: bool,
     saw_end: bool,
@@ -114,12 +118,13 @@ impl<R: Read> LogReader<R> {
             base: 0,
             eof: false,
         };
-        let (header, header_bytes) = read_header(&mut input, &opts)?;
+        let (header, header_bytes, version) = read_header(&mut input, &opts)?;
         Ok(Self {
             input,
             opts,
             header,
             header_bytes,
+            version,
             expected_seq: 0,
             after_damage: false,
             saw_end: false,
@@ -134,6 +139,12 @@ impl<R: Read> LogReader<R> {
     #[must_use]
     pub fn header(&self) -> &LogHeader {
         &self.header
+    }
+
+    /// The file's format version.
+    #[must_use]
+    pub fn version(&self) -> u16 {
+        self.version
     }
 
     /// Size of the file header (prefix and header section), bytes.
@@ -338,10 +349,16 @@ impl<R: Read> LogReader<R> {
                 self.damaged(kind, None, false)?;
                 continue;
             }
+            if u64::from(head.seq) < self.expected_seq {
+                self.duplicate(&head, total)?;
+                continue;
+            }
             self.check_sequence(&head)?;
             let payload = &self.input.buf[payload_range];
             let decoded = match head.kind {
-                format::KIND_FRAME => codec::decode_frame_payload(payload).map(Record::Frame),
+                format::KIND_FRAME => {
+                    codec::decode_frame_payload_version(payload, self.version).map(Record::Frame)
+                }
                 format::KIND_EVENT => codec::decode_payload(payload).map(Record::Event),
                 format::KIND_END => codec::decode_payload(payload).map(Record::End),
                 kind => {
@@ -374,6 +391,58 @@ impl<R: Read> LogReader<R> {
                 }
             }
         }
+    }
+
+    /// An intact record whose sequence number was already read. Strict:
+    /// stop with [`DamageKind::Duplicate`]. Salvage: skip it (`total`
+    /// bytes), listing a run of them at one place as one damage.
+    fn duplicate(&mut self, head: &FrameHead, total: usize) -> Result<(), LogError> {
+        let seq = u64::from(head.seq);
+        let offset = self.offset();
+        if !self.opts.salvage {
+            self.done = true;
+            return Err(LogError::Damaged(Damage {
+                offset,
+                record_index: self.expected_seq,
+                kind: DamageKind::Duplicate {
+                    first_seq: seq,
+                    records: 1,
+                },
+                skipped_bytes: 0,
+            }));
+        }
+        self.input.pos += total;
+        let bytes = total as u64;
+        self.stats.duplicates_skipped += 1;
+        self.stats.bytes_skipped += bytes;
+        if let Some(Damage {
+            offset: o,
+            kind: DamageKind::Duplicate { first_seq, records },
+            skipped_bytes,
+            ..
+        }) = self.damage.last_mut()
+            && *o + *skipped_bytes == offset
+            && *first_seq + *records == seq
+        {
+            *records += 1;
+            *skipped_bytes += bytes;
+            return Ok(());
+        }
+        self.stats.damaged_places += 1;
+        if self.damage.len() < Self::MAX_LISTED_DAMAGE {
+            self.damage.push(Damage {
+                offset,
+                record_index: self.expected_seq,
+                kind: DamageKind::Duplicate {
+                    first_seq: seq,
+                    records: 1,
+                },
+                skipped_bytes: bytes,
+            });
+        } else {
+            self.stats.damage_not_listed += 1;
+        }
+        Ok(())
     }
 
     /// Check an intact frame's sequence number (salvage keeps the frame
@@ -454,7 +523,7 @@ fn header_damage(offset: u64, kind: DamageKind) -> LogError {
 fn read_header<R: Read>(
     inp: &mut Input<R>,
     opts: &ReadOptions,
-) -> Result<(LogHeader, u64), LogError> {
+) -> Result<(LogHeader, u64, u16), LogError> {
     let avail = inp.fill(format::FILE_PREFIX_BYTES)?;
     let have = &inp.buf[inp.pos..inp.pos + avail];
     let magic_part = have.len().min(8);
@@ -473,7 +542,7 @@ fn read_header<R: Read>(
     }
     let p = &inp.buf[inp.pos..inp.pos + format::FILE_PREFIX_BYTES];
     let version = u16::from_le_bytes([p[8], p[9]]);
-    if version != format::VERSION {
+    if !(format::OLDEST_READ_VERSION..=format::VERSION).contains(&version) {
         return Err(header_damage(
             format::VERSION_OFFSET,
             DamageKind::UnsupportedVersion {
@@ -531,7 +600,7 @@ fn read_header<R: Read>(
         )
     })?;
     inp.pos += total;
-    Ok((header, total as u64))
+    Ok((header, total as u64, version))
 }
 
 impl<R: Read> Iterator for LogReader<R> {

@@ -100,6 +100,7 @@ pub fn synthetic_frame(i: u32, ports: usize, joints: usize, contacts: usize) -> 
                 normal_module: (k % 2 == 0).then_some([0.0, 0.6, 0.8]),
             })
             .collect(),
+        contacts_reported: true,
     }
 }
 

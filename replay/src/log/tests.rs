@@ -544,6 +544,7 @@ prop_compose! {
             (any::<u16>(), any::<u16>(), any_f64(), proptest::option::of(proptest::array::uniform3(any_f64()))),
             0..10,
         ),
+        contacts_reported in any::<bool>(),
     ) -> FrameRecord {
         FrameRecord {
             time_s,
@@ -569,6 +570,7 @@ prop_compose! {
                     normal_module,
                 })
                 .collect(),
+            contacts_reported,
         }
     }
 }
@@ -610,6 +612,23 @@ fn payload_bytes(r: &Record) -> Vec<u8> {
     }
     .unwrap();
     out
+}
+
+/// A log of `records` (and its end record), with the byte span of each
+/// record, the end record's last, and where the header ends.
+fn write_log_with_spans(records: &[Record]) -> (Vec<u8>, Vec<(u64, u64)>, u64) {
+    let mut w = LogWriter::new(Vec::new(), &demo_header(2)).unwrap();
+    let header_end = w.bytes_written();
+    let mut spans = Vec::new();
+    for r in records {
+        let s = w.bytes_written();
+        w.write(r).unwrap();
+        spans.push((s, w.bytes_written()));
+    }
+    let s = w.bytes_written();
+    let bytes = w.finish("proptest").unwrap();
+    spans.push((s, bytes.len() as u64));
+    (bytes, spans, header_end)
 }
 
 fn write_log(records: &[Record]) -> Vec<u8> {
@@ -655,9 +674,19 @@ proptest! {
         records in proptest::collection::vec(arb_record(), 1..12),
         edits in proptest::collection::vec((any::<usize>(), any::<u8>(), 0..3u8), 1..6),
     ) {
-        let mut bytes = write_log(&records);
-        for (at, v, op) in edits {
-            let at = at % bytes.len();
+        let (mut bytes, spans, header_end) = write_log_with_spans(&records);
+        let original: Vec<Record> = {
+            let (all, err) = drain(&bytes, ReadOptions::default()).unwrap();
+            prop_assert!(err.is_none());
+            all
+        };
+        // Edits at positions of the original file, applied from the last
+        // so that each lands where it was drawn.
+        let len = bytes.len();
+        let mut edits: Vec<(usize, u8, u8)> =
+            edits.into_iter().map(|(at, v, op)| (at % len, v, op)).collect();
+        edits.sort_by_key(|e| std::cmp::Reverse(e.0));
+        for &(at, v, op) in &edits {
             match op {
                 0 => bytes[at] ^= v.max(1),
                 1 => bytes.insert(at, v),
@@ -667,6 +696,30 @@ proptest! {
         let (strict, salvaged) = read_any(&bytes, 1 << 16);
         prop_assert!(strict <= salvaged);
         prop_assert!(salvaged <= records.len() as u64 + 1);
+        // Every record no edit touched comes back from salvage, in order
+        // (an insertion just before a record's first byte leaves it whole).
+        let touched = |s: u64, e: u64| {
+            edits.iter().any(|&(at, _, op)| {
+                let at = at as u64;
+                if op == 1 { s < at && at < e } else { s <= at && at < e }
+            })
+        };
+        if edits.iter().any(|&(at, _, _)| (at as u64) < header_end) {
+            return Ok(()); // the header is gone: nothing can be read
+        }
+        let untouched: Vec<&Record> = original
+            .iter()
+            .zip(&spans)
+            .filter(|(_, (s, e))| !touched(*s, *e))
+            .map(|(r, _)| r)
+            .collect();
+        let (got, _, _) = salvage_all(&bytes);
+        // Compared by payload bytes: NaN fields are not equal to themselves.
+        let mut it = got.iter().map(payload_bytes);
+        for want in untouched {
+            let w = payload_bytes(want);
+            prop_assert!(it.any(|g| g == w), "untouched record lost: {:?}", want);
+        }
     }
 }
 
@@ -742,7 +795,8 @@ fn direct_frame_decoder_handles_long_forms() {
     assert_eq!(direct.contacts[8].sensor, 251);
     direct_agrees(&payload).unwrap();
     // A frame without pose, joints or ports: the temperature flag is the
-    // 4th byte after the time; contacts count 0 follows it.
+    // 4th byte after the time; contacts count 0 follows it, then the
+    // contact heartbeat flag (format version 2).
     let bare = FrameRecord {
         time_s: 1.0,
         pose: None,
@@ -750,14 +804,145 @@ fn direct_frame_decoder_handles_long_forms() {
         port_pressures_pa: None,
         total_temperature_k: None,
         contacts: Vec::new(),
+        contacts_reported: false,
     };
     let mut payload = payload_bytes(&Record::Frame(bare.clone()));
-    assert_eq!(payload.len(), 13);
+    assert_eq!(payload.len(), 14);
     assert_eq!(payload[12], 0);
+    assert_eq!(payload[13], 0);
     // Contact count 0 written in the two-byte form: not canonical.
     payload.truncate(12);
-    payload.extend_from_slice(&[251, 0, 0]);
+    payload.extend_from_slice(&[251, 0, 0, 0]);
     assert!(codec::direct_frame(&payload).is_none());
     let via_codec = codec::decode_frame_payload(&payload);
     assert_eq!(via_codec, codec::decode_payload::<FrameRecord>(&payload));
+}
+
+/// A log of 600 frames with a copy of frames 100..200 spliced in after
+/// frame 400, and the offsets of the original frames.
+fn log_with_repeated_block() -> (Vec<u8>, Vec<u64>, u64) {
+    let header = demo_header(9);
+    let mut w = LogWriter::new(Vec::new(), &header).unwrap();
+    let mut offsets = Vec::new();
+    for i in 0..600 {
+        offsets.push(w.bytes_written());
+        w.write_frame(&synthetic_frame(i, 7, 8, 3)).unwrap();
+    }
+    offsets.push(w.bytes_written());
+    let bytes = w.finish("").unwrap();
+    let at = |i: usize| usize::try_from(offsets[i]).unwrap();
+    let block = bytes[at(100)..at(200)].to_vec();
+    let spliced = [&bytes[..at(401)], &block[..], &bytes[at(401)..]].concat();
+    let dup_at = offsets[401];
+    (spliced, offsets, dup_at)
+}
+
+#[test]
+fn a_repeated_block_is_reported_as_duplicates_and_skipped_not_lost() {
+    let (bytes, _, dup_at) = log_with_repeated_block();
+    // Strict: stops at the first repeated record, naming it.
+    let (got, err) = drain(&bytes, ReadOptions::default()).unwrap();
+    assert_eq!(got.len(), 401);
+    let d = err.unwrap().damage().unwrap().clone();
+    assert_eq!(
+        d.kind,
+        DamageKind::Duplicate {
+            first_seq: 100,
+            records: 1
+        }
+    );
+    assert_eq!(d.offset, dup_at);
+    // Salvage: every frame once, in order; nothing lost; one place listed.
+    for step in [usize::MAX, 777] {
+        let mut r =
+            LogReader::open(Trickle { data: &bytes, step }, ReadOptions::salvage()).unwrap();
+        let mut times = Vec::new();
+        let mut end = None;
+        while let Some(rec) = r.next_record().unwrap() {
+            match rec {
+                Record::Frame(f) => times.push(f.time_s),
+                Record::End(e) => end = Some(e),
+                Record::Event(_) => {}
+            }
+        }
+        let want: Vec<f64> = (0..600)
+            .map(|i| synthetic_frame(i, 7, 8, 3).time_s)
+            .collect();
+        assert_eq!(times, want);
+        assert!(end.is_some(), "the end record is read");
+        let s = r.stats();
+        assert_eq!(s.records_lost, 0);
+        assert_eq!(s.duplicates_skipped, 100);
+        assert_eq!(s.damaged_places, 1);
+        assert_eq!(
+            r.damage(),
+            &[Damage {
+                offset: dup_at,
+                record_index: 401,
+                kind: DamageKind::Duplicate {
+                    first_seq: 100,
+                    records: 100
+                },
+                skipped_bytes: s.bytes_skipped,
+            }]
+        );
+    }
+    // inspect says the same.
+    let rep = inspect(bytes.as_slice(), ReadOptions::salvage()).unwrap();
+    assert_eq!(rep.salvage.records_lost, 0);
+    assert_eq!(rep.salvage.duplicates_skipped, 100);
+    assert!(
+        rep.to_string()
+            .contains("0 records lost, 100 repeated records skipped"),
+        "{rep}"
+    );
+}
+
+#[test]
+fn version_1_logs_still_read_with_a_reporting_skin() {
+    let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../fixtures/logs");
+    let mut seen = 0;
+    for name in ["kettle-7-12s.upl", "wrens-3-10s.upl", "drift-5-10s.upl"] {
+        let bytes = std::fs::read(dir.join(name)).unwrap();
+        assert_eq!(
+            u16::from_le_bytes([bytes[8], bytes[9]]),
+            1,
+            "{name} is a version 1 log"
+        );
+        let mut r = LogReader::open(bytes.as_slice(), ReadOptions::default()).unwrap();
+        assert_eq!(r.version(), 1);
+        while let Some(rec) = r.next_record().unwrap() {
+            if let Record::Frame(f) = rec {
+                assert!(f.contacts_reported);
+                seen += 1;
+            }
+        }
+    }
+    assert!(seen > 1000, "{seen} frames");
+}
+
+#[test]
+fn a_silent_skin_round_trips_in_version_2() {
+    let mut f = synthetic_frame(3, 7, 2, 0);
+    f.contacts_reported = false;
+    let mut w = LogWriter::new(Vec::new(), &demo_header(3)).unwrap();
+    w.write_frame(&f).unwrap();
+    let bytes = w.finish("").unwrap();
+    assert_eq!(u16::from_le_bytes([bytes[8], bytes[9]]), format::VERSION);
+    let (got, err) = drain(&bytes, ReadOptions::default()).unwrap();
+    assert!(err.is_none());
+    assert_eq!(got[0], Record::Frame(f));
+}
+
+#[test]
+fn versions_outside_the_read_range_are_refused() {
+    let (mut bytes, ..) = small_log();
+    for v in [0u16, format::VERSION + 1] {
+        bytes[8..10].copy_from_slice(&v.to_le_bytes());
+        let e = LogReader::open(bytes.as_slice(), ReadOptions::default()).unwrap_err();
+        assert!(matches!(
+            e.damage().map(|d| &d.kind),
+            Some(DamageKind::UnsupportedVersion { found, .. }) if *found == v
+        ));
+    }
 }

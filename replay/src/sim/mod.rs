@@ -240,6 +240,7 @@ impl Sim {
                 port_pressures_pa: None,
                 total_temperature_k: None,
                 contacts: Vec::with_capacity(sensor_count),
+                contacts_reported: true,
             },
             time_s: 0.0,
             steps: 0,

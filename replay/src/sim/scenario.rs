@@ -338,6 +338,7 @@ struct FaultDoc {
     sensor: Option<S<u32>>,
     drift_m_per_s: Option<[f64; 3]>,
     channel: Option<S<String>>,
+    jump_s: Option<S<f64>>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -603,6 +604,18 @@ pub enum FaultKind {
         /// Which channel.
         channel: Channel,
     },
+    /// The frame clock runs `jump_s` ahead (or behind, when negative) of
+    /// true time while active.
+    ClockJump {
+        /// Offset of the stamps, s.
+        jump_s: f64,
+    },
+    /// The frame clock stops: every stamp is the one at onset.
+    ClockStuck,
+    /// The frame clock restarts from zero at onset (stamps `t - at_s`).
+    ClockReset,
+    /// Every stamp is NaN.
+    ClockNan,
 }
 
 /// A scheduled fault, active for `at_s <= t < until_s`.
@@ -645,6 +658,10 @@ impl std::fmt::Display for FaultKind {
                 write!(f, "odometry drifting ({x:.4}, {y:.4}, {z:.4}) m/s")
             }
             Self::Dropout { channel } => write!(f, "{channel} dropout"),
+            Self::ClockJump { jump_s } => write!(f, "clock jumping by {jump_s} s"),
+            Self::ClockStuck => write!(f, "clock stuck"),
+            Self::ClockReset => write!(f, "clock reset to 0"),
+            Self::ClockNan => write!(f, "clock stamps not a number"),
         }
     }
 }
@@ -1648,12 +1665,36 @@ impl Scenario {
                     };
                     FaultKind::Dropout { channel }
                 }
+                "clock_jump" => {
+                    let Some(j) = &f.jump_s else {
+                        return Err(ctx.err(
+                            K::BadFault,
+                            f.kind.span(),
+                            el,
+                            "clock_jump needs jump_s",
+                        ));
+                    };
+                    if !j.get_ref().is_finite() {
+                        return Err(ctx.err(
+                            K::BadFault,
+                            j.span(),
+                            format!("{el} jump_s"),
+                            "must be finite",
+                        ));
+                    }
+                    FaultKind::ClockJump {
+                        jump_s: *j.get_ref(),
+                    }
+                }
+                "clock_stuck" => FaultKind::ClockStuck,
+                "clock_reset" => FaultKind::ClockReset,
+                "clock_nan" => FaultKind::ClockNan,
                 other => {
                     return Err(ctx.err(
                         K::BadFault,
                         f.kind.span(),
                         format!("{el} kind"),
-                        format!("unknown fault {other:?}: use port_blocked, port_stuck, port_leak, contact_dead, odometry_drift or dropout"),
+                        format!("unknown fault {other:?}: use port_blocked, port_stuck, port_leak, contact_dead, odometry_drift, dropout, clock_jump, clock_stuck, clock_reset or clock_nan"),
                     ));
                 }
             };

@@ -49,6 +49,8 @@ pub struct Sensors {
     rng_joint: NormalRng,
     rng_temp: NormalRng,
     rng_drop: NormalRng,
+    /// The stamp a stuck frame clock holds.
+    clock_hold: Option<f64>,
     odo_pos_err: V3,
     odo_att_err: V3,
     travelled_m: f64,
@@ -119,6 +121,7 @@ impl Sensors {
             rng_joint: NormalRng::new(seed, stream::JOINTS),
             rng_temp: NormalRng::new(seed, stream::TEMPERATURE),
             rng_drop: NormalRng::new(seed, stream::DROPOUT),
+            clock_hold: None,
             odo_pos_err: [0.0; 3],
             odo_att_err: [0.0; 3],
             travelled_m: 0.0,
@@ -167,6 +170,28 @@ impl Sensors {
         }
     }
 
+    /// The frame clock's stamp for true time `t`, under the clock faults
+    /// active at `t` (applied in schedule order).
+    fn stamp(&mut self, sc: &Scenario, t: f64) -> f64 {
+        let mut s = t;
+        let mut stuck = false;
+        for f in sc.faults.iter().filter(|f| f.active(t)) {
+            match f.kind {
+                FaultKind::ClockJump { jump_s } => s += jump_s,
+                FaultKind::ClockReset => s -= f.at_s,
+                FaultKind::ClockNan => s = f64::NAN,
+                FaultKind::ClockStuck => stuck = true,
+                _ => {}
+            }
+        }
+        if stuck {
+            *self.clock_hold.get_or_insert(s)
+        } else {
+            self.clock_hold = None;
+            s
+        }
+    }
+
     fn dropped(&mut self, sc: &Scenario, t: f64, ch: Channel, p: f64) -> bool {
         let scheduled = sc.faults.iter().any(|f| {
             f.active(t) && matches!(f.kind, FaultKind::Dropout { channel } if channel == ch || channel == Channel::All)
@@ -188,7 +213,7 @@ impl Sensors {
         t: f64,
         frame: &mut FrameRecord,
     ) {
-        frame.time_s = t;
+        frame.time_s = self.stamp(sc, t);
         let gas = world.gas();
         let sp = &sc.sensors.probe;
 
@@ -361,8 +386,10 @@ impl Sensors {
                 });
             }
         }
-        if self.dropped(sc, t, Channel::Contacts, cn.dropout_probability) {
+        let silent = self.dropped(sc, t, Channel::Contacts, cn.dropout_probability);
+        if silent {
             frame.contacts.clear();
         }
+        frame.contacts_reported = !silent;
     }
 }
