@@ -173,6 +173,13 @@
 // Reason: arrived at the source.
 #define UPC_REASON_HOLD_AT_SOURCE 14
 
+// Reason: holding while the operating mode settles (the channels no
+// longer call for a hold).
+#define UPC_REASON_HOLD_MODE_SETTLING 15
+
+// Reason: the frame's time stamp is not trusted.
+#define UPC_REASON_HOLD_CLOCK_UNTRUSTED 16
+
 // Speed cap: cruise.
 #define UPC_SPEED_CRUISE 0
 
@@ -211,6 +218,9 @@
 
 // Frame disposition: time stamp not finite: ignored.
 #define UPC_FRAME_DROPPED_INVALID 4
+
+// Frame disposition: time stamp jumped beyond the trusted limit: ignored.
+#define UPC_FRAME_DROPPED_CLOCK_JUMP 5
 
 // Phase: following the streamline.
 #define UPC_PHASE_FOLLOW 0

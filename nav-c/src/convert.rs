@@ -337,7 +337,7 @@ const CHANNELS: [(ChannelState, u32); 3] = [
     (ChannelState::Failed, UPC_CHANNEL_FAILED),
 ];
 
-const REASONS: [(ReasonCode, u32); 15] = [
+const REASONS: [(ReasonCode, u32); 17] = [
     (
         ReasonCode::FollowUpstream,
         crate::UPC_REASON_FOLLOW_UPSTREAM,
@@ -371,6 +371,14 @@ const REASONS: [(ReasonCode, u32); 15] = [
     ),
     (ReasonCode::GaveUp, crate::UPC_REASON_GAVE_UP),
     (ReasonCode::HoldAtSource, crate::UPC_REASON_HOLD_AT_SOURCE),
+    (
+        ReasonCode::HoldModeSettling,
+        crate::UPC_REASON_HOLD_MODE_SETTLING,
+    ),
+    (
+        ReasonCode::HoldClockUntrusted,
+        crate::UPC_REASON_HOLD_CLOCK_UNTRUSTED,
+    ),
 ];
 
 const SPEEDS: [(SpeedLimit, u32); 8] = [
@@ -384,7 +392,7 @@ const SPEEDS: [(SpeedLimit, u32); 8] = [
     (SpeedLimit::Stopped, crate::UPC_SPEED_STOPPED),
 ];
 
-const FRAMES: [(FrameDisposition, u32); 5] = [
+const FRAMES: [(FrameDisposition, u32); 6] = [
     (FrameDisposition::Used, crate::UPC_FRAME_USED),
     (
         FrameDisposition::PartlyRejected,
@@ -398,6 +406,10 @@ const FRAMES: [(FrameDisposition, u32); 5] = [
     (
         FrameDisposition::DroppedInvalid,
         crate::UPC_FRAME_DROPPED_INVALID,
+    ),
+    (
+        FrameDisposition::DroppedClockJump,
+        crate::UPC_FRAME_DROPPED_CLOCK_JUMP,
     ),
 ];
 

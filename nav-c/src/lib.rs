@@ -186,6 +186,11 @@ pub const UPC_REASON_HOLD_NO_FLOW_AT_JUNCTION: u32 = 12;
 pub const UPC_REASON_GAVE_UP: u32 = 13;
 /// Reason: arrived at the source.
 pub const UPC_REASON_HOLD_AT_SOURCE: u32 = 14;
+/// Reason: holding while the operating mode settles (the channels no
+/// longer call for a hold).
+pub const UPC_REASON_HOLD_MODE_SETTLING: u32 = 15;
+/// Reason: the frame's time stamp is not trusted.
+pub const UPC_REASON_HOLD_CLOCK_UNTRUSTED: u32 = 16;
 
 /// Speed cap: cruise.
 pub const UPC_SPEED_CRUISE: u32 = 0;
@@ -214,6 +219,8 @@ pub const UPC_FRAME_LATE_MERGED: u32 = 2;
 pub const UPC_FRAME_DROPPED_STALE: u32 = 3;
 /// Frame disposition: time stamp not finite: ignored.
 pub const UPC_FRAME_DROPPED_INVALID: u32 = 4;
+/// Frame disposition: time stamp jumped beyond the trusted limit: ignored.
+pub const UPC_FRAME_DROPPED_CLOCK_JUMP: u32 = 5;
 
 /// Phase: following the streamline.
 pub const UPC_PHASE_FOLLOW: u32 = 0;

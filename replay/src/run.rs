@@ -639,7 +639,7 @@ pub fn run_live<T: Write, L: Write>(
                 faults.push(f);
             }
         }
-        if sim.outcome().reached_source {
+        if sim.reached_source() {
             outcome = "reached source".to_string();
             break;
         }

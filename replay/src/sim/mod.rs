@@ -375,8 +375,15 @@ impl Sim {
         let mut o = self.outcome.clone();
         o.elapsed_s = self.time_s;
         o.wrong_branches = self.judge.wrong();
-        o.junction_calls = self.judge.calls().to_vec();
+        o.junction_calls = self.judge.calls();
         o
+    }
+
+    /// Whether the head has come within the reach distance of a source
+    /// (cheap: no copy of the outcome).
+    #[must_use]
+    pub fn reached_source(&self) -> bool {
+        self.outcome.reached_source
     }
 
     /// Switch the per-frame true-standoff query (a kiddo nearest-neighbour

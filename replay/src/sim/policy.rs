@@ -56,6 +56,23 @@ pub struct JunctionCall {
     pub wrong: bool,
 }
 
+/// A call as indices (no allocation while the robot moves).
+#[derive(Debug, Clone, Copy)]
+struct RawCall {
+    time_s: f64,
+    node: usize,
+    arrived: usize,
+    taken: usize,
+    right: usize,
+    right_flow: f64,
+    next_flow: f64,
+    clear: bool,
+}
+
+/// Calls kept in full per run; later ones are only counted (storage is
+/// reserved at construction, so judging never allocates).
+pub const MAX_KEPT_CALLS: usize = 256;
+
 /// The judge's view of one conduit.
 #[derive(Debug, Clone)]
 struct Arm {
@@ -82,7 +99,9 @@ pub struct PolicyJudge {
     learned_dead: Vec<(usize, usize)>,
     /// The conduit by which the robot first came to each node.
     first_arrival: Vec<Option<usize>>,
-    calls: Vec<JunctionCall>,
+    calls: Vec<RawCall>,
+    total_calls: u32,
+    wrong_calls: u32,
 }
 
 impl PolicyJudge {
@@ -115,22 +134,44 @@ impl PolicyJudge {
             need_m,
             deep: None,
             entered_from: None,
-            learned_dead: Vec::new(),
+            // At most one learned dead end per conduit end.
+            learned_dead: Vec::with_capacity(2 * sc.conduits.len()),
             first_arrival: vec![None; sc.nodes.len()],
-            calls: Vec::new(),
+            calls: Vec::with_capacity(MAX_KEPT_CALLS),
+            total_calls: 0,
+            wrong_calls: 0,
         }
     }
 
-    /// The calls so far.
+    /// The calls so far (the first [`MAX_KEPT_CALLS`]), with ids.
     #[must_use]
-    pub fn calls(&self) -> &[JunctionCall] {
-        &self.calls
+    pub fn calls(&self) -> Vec<JunctionCall> {
+        self.calls
+            .iter()
+            .map(|c| JunctionCall {
+                time_s: c.time_s,
+                node: self.node_ids[c.node].clone(),
+                arrived_via: self.ids[c.arrived].clone(),
+                taken: self.ids[c.taken].clone(),
+                right: self.ids[c.right].clone(),
+                right_flow_kg_per_s: c.right_flow,
+                next_flow_kg_per_s: c.next_flow,
+                clear: c.clear,
+                wrong: c.taken != c.right,
+            })
+            .collect()
+    }
+
+    /// Calls judged so far (kept or only counted).
+    #[must_use]
+    pub fn total(&self) -> u32 {
+        self.total_calls
     }
 
     /// Wrong calls so far.
     #[must_use]
     pub fn wrong(&self) -> u32 {
-        u32::try_from(self.calls.iter().filter(|c| c.wrong).count()).unwrap_or(u32::MAX)
+        self.wrong_calls
     }
 
     /// Whether station `s` of conduit `c` is past the junction zones of
@@ -192,33 +233,52 @@ impl PolicyJudge {
     }
 
     fn judge(&mut self, t: f64, j: usize, p: usize, c: usize) {
-        let mut up: Vec<(f64, usize)> = (0..self.arms.len())
-            .filter(|&k| k != p && self.arms[k].ends.contains(&j))
-            .filter(|&k| self.mouth(k, j) > self.need_m)
-            .filter(|&k| !self.learned_dead.contains(&(j, k)))
-            .map(|k| (self.inflow(k, j), k))
-            .filter(|(f, _)| *f > 0.0)
-            .collect();
-        up.sort_by(|a, b| b.0.total_cmp(&a.0).then(a.1.cmp(&b.1)));
-        let (right, right_flow, next_flow) = match up.as_slice() {
-            [] => match self.first_arrival[j] {
+        // The two upstream candidates with the most flow toward `j` (ties
+        // to the lower index), by one scan.
+        let mut best: [Option<(f64, usize)>; 2] = [None, None];
+        for k in 0..self.arms.len() {
+            if k == p
+                || !self.arms[k].ends.contains(&j)
+                || self.mouth(k, j) <= self.need_m
+                || self.learned_dead.contains(&(j, k))
+            {
+                continue;
+            }
+            let f = self.inflow(k, j);
+            if f <= 0.0 {
+                continue;
+            }
+            if best[0].is_none_or(|b| f > b.0) {
+                best[1] = best[0];
+                best[0] = Some((f, k));
+            } else if best[1].is_none_or(|b| f > b.0) {
+                best[1] = Some((f, k));
+            }
+        }
+        let (right, right_flow, next_flow) = match best {
+            [None, _] => match self.first_arrival[j] {
                 Some(back) => (back, 0.0, 0.0),
                 None => return,
             },
-            [(f, k)] => (*k, *f, 0.0),
-            [(f, k), (g, _), ..] => (*k, *f, *g),
+            [Some((f, k)), None] => (k, f, 0.0),
+            [Some((f, k)), Some((g, _))] => (k, f, g),
         };
         let clear = right_flow > 0.0 && right_flow >= CLEAR_RATIO * next_flow;
-        self.calls.push(JunctionCall {
-            time_s: t,
-            node: self.node_ids[j].clone(),
-            arrived_via: self.ids[p].clone(),
-            taken: self.ids[c].clone(),
-            right: self.ids[right].clone(),
-            right_flow_kg_per_s: right_flow,
-            next_flow_kg_per_s: next_flow,
-            clear,
-            wrong: c != right,
-        });
+        self.total_calls = self.total_calls.saturating_add(1);
+        if c != right {
+            self.wrong_calls = self.wrong_calls.saturating_add(1);
+        }
+        if self.calls.len() < MAX_KEPT_CALLS {
+            self.calls.push(RawCall {
+                time_s: t,
+                node: j,
+                arrived: p,
+                taken: c,
+                right,
+                right_flow,
+                next_flow,
+                clear,
+            });
+        }
     }
 }
