@@ -139,6 +139,8 @@ fn frame(c: &mut Cursor<'_>, f: &mut SensorFrame<7, 7, 64>) -> Option<()> {
     if flags & 8 != 0 {
         f.total_temperature_k = Some(c.f64()?);
     }
+    // Bit 16: the contact channel reported (a quiet skin, not a silent one).
+    f.contacts_reported = flags & 16 != 0;
     let n = c.u8()?;
     for _ in 0..n {
         let module = c.u16()?;

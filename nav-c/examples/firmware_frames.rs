@@ -18,7 +18,7 @@
 //! its normals, 3 `f64` each; port noise, gamma, R, assumed temperature,
 //! cruise speed, minimum dynamic pressure `f64`; section, throat cadence
 //! and throat stations `u32`), then `u32` frame count; per frame
-//! `f64` time, `u8` flags (1 pose, 2 joints, 4 ports, 8 total temperature),
+//! `f64` time, `u8` flags (1 pose, 2 joints, 4 ports, 8 total temperature, 16 contact channel reported),
 //! then the present channels in that order (pose: 9 `f64`; joints: `u8`
 //! count then pitch and yaw `f64` each; ports: one `f64` per port;
 //! temperature: `f64`), then `u8` contact count and per contact `u16`
@@ -45,6 +45,9 @@ fn encode(f: &FrameRecord, out: &mut Vec<u8>) {
     }
     if f.total_temperature_k.is_some() {
         flags |= 8;
+    }
+    if f.contacts_reported {
+        flags |= 16;
     }
     out.push(flags);
     if let Some(p) = &f.pose {

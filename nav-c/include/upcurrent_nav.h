@@ -432,6 +432,10 @@ typedef struct UpcFrame {
   bool has_total_temperature;
   // Gas total temperature at the head, K.
   double total_temperature_k;
+  // The contact channel reported this frame (with or without contacts):
+  // `false` is a silent skin, not a quiet one. A frame with contacts
+  // counts as reported either way.
+  bool has_contacts;
   // Contacts given (0 ..= `UPC_MAX_CONTACTS`).
   uint32_t contact_count;
   // Contacts.

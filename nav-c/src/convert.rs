@@ -306,6 +306,7 @@ pub(crate) fn sensor_frame<const P: usize>(
     if f.has_total_temperature {
         out.total_temperature_k = Some(f.total_temperature_k);
     }
+    out.contacts_reported = f.has_contacts;
     let nc = count(f.contact_count);
     if nc > UPC_MAX_CONTACTS {
         return Err(capacity("contact_count", f.contact_count, UPC_MAX_CONTACTS));

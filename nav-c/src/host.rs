@@ -124,6 +124,7 @@ pub fn frame_to_c(f: &FrameRecord, out: &mut UpcFrame) -> Result<(), Fault> {
         port_pressures_pa: [0.0; UPC_MAX_PORTS],
         has_total_temperature: false,
         total_temperature_k: 0.0,
+        has_contacts: false,
         contact_count: 0,
         contacts: [UpcContact::default(); UPC_MAX_CONTACTS],
     };
@@ -166,6 +167,7 @@ pub fn frame_to_c(f: &FrameRecord, out: &mut UpcFrame) -> Result<(), Fault> {
     if f.contacts.len() > UPC_MAX_CONTACTS {
         return Err(too_many("contacts", f.contacts.len(), UPC_MAX_CONTACTS));
     }
+    o.has_contacts = f.contacts_reported;
     o.contact_count = u32::try_from(f.contacts.len()).unwrap_or(u32::MAX);
     for (slot, c) in o.contacts.iter_mut().zip(&f.contacts) {
         *slot = UpcContact {

@@ -425,6 +425,10 @@ pub struct UpcFrame {
     pub has_total_temperature: bool,
     /// Gas total temperature at the head, K.
     pub total_temperature_k: f64,
+    /// The contact channel reported this frame (with or without contacts):
+    /// `false` is a silent skin, not a quiet one. A frame with contacts
+    /// counts as reported either way.
+    pub has_contacts: bool,
     /// Contacts given (0 ..= `UPC_MAX_CONTACTS`).
     pub contact_count: u32,
     /// Contacts.
