@@ -1,7 +1,7 @@
 //! Follow: head upstream (opposite the fused flow direction); without
 //! usable flow, along the conduit axis by feel (signed along the last
 //! heading). Centring, the wall push and the speed come from
-//! [`super::standoff::steer`].
+//! `standoff::steer`.
 
 use crate::health::OperatingMode;
 

@@ -18,7 +18,7 @@
 //! | `back_out.rs` | dead-end triggers and the retrace to the junction |
 //! | `branch.rs` | junction sampling, branch choice with hysteresis, entering |
 //! | `follow.rs` | following upstream, or by feel without flow |
-//! | `standoff.rs` | clearances and [`steer`](self): centring, wall push, speed limits |
+//! | `standoff.rs` | clearances and `steer`: centring, wall push, speed limits |
 //! | `observe.rs`, `record.rs`, `config.rs` | inputs, outputs and thresholds |
 //!
 //! The order of the dispatch is the order of precedence: hold, then a
@@ -33,14 +33,20 @@
 //!   standoff `robot_radius + standoff_margin`. Without flow (tactile-only
 //!   mode) the heading is the conduit axis signed along the last heading;
 //!   without tactile data (flow-only mode) speed is capped at creep.
-//!   Checked by `tests/tests/nav_props.rs` (`heading_is_unit_and_speed_bounded`,
-//!   the centring and mode tests) and `tests/tests/nav_free_space.rs`.
+//!   Checked by `tests/tests/onboard.rs`
+//!   (`heading_points_upstream_once_the_filter_settles`,
+//!   `brushing_contacts_give_the_conduit_radius_and_a_recentring_heading`),
+//!   `tests/tests/nav_props.rs` (`arbitrary_finite_inputs_give_finite_commands`,
+//!   `rigid_motion_leaves_decisions_unchanged`) and
+//!   `tests/tests/nav_free_space.rs`
+//!   (`a_wall_ahead_beside_the_flow_is_steered_round_not_a_stop`).
 //! - **Speed limits / standoff.** Speed ramps from creep to cruise as the
 //!   standoff excess goes from 0 to `slow_band_m`, and is capped near
 //!   throats (linear in distance over `throat_lookahead_m`), near junctions,
 //!   by mode, and at the feel speed when no clearance is known. Checked by
-//!   `nav_props.rs` and the closed-loop strike counts in
-//!   `tests/tests/closed_loop.rs`.
+//!   `nav_free_space.rs` (`a_quiet_skin_is_healthy_and_caps_speed_at_the_feel_speed`,
+//!   `with_the_flow_failed_and_nothing_felt_it_creeps`) and the closed-loop
+//!   strike-free runs in `tests/tests/closed_loop.rs`.
 //! - **Branch.** At an unresolved junction each eligible branch is sampled
 //!   in turn (the robot stops and points its head into the branch; the
 //!   caller adds one mass-flux sample per aligned frame), then
@@ -50,20 +56,26 @@
 //!   never chosen, whatever its flow. Continuity (sum of branch fluxes
 //!   against the trunk flux) is recorded; when it fails, under-sampled
 //!   branches get a second round. Checked by `nav_props.rs`
-//!   (`too_narrow_never_chosen`, hysteresis and continuity properties).
+//!   (`narrow_branch_never_chosen`, `more_flow_for_the_chosen_branch_keeps_it`,
+//!   `no_flip_inside_the_band`, `noise_inside_the_hysteresis_band_never_makes_it_switch`,
+//!   `avoids_the_too_narrow_strongest_branch_and_reaches_the_source`).
 //! - **Back out.** A wall across the path, flow lost for `lost_flow_s`, or
 //!   a throat ahead narrower than `2 robot_radius + width_margin` marks the
 //!   entered branch a dead end, and the robot retraces its stations
 //!   (following their `prev_seq` links) to the junction anchor, then
 //!   enters the next-best branch. A junction with nothing left passes the
 //!   failure to its parent; with no parent the navigator gives up and
-//!   holds. Checked by `nav_props.rs` (the back-out and exhaustion tests)
-//!   and `tests/tests/onboard.rs`.
+//!   holds. Checked by `nav_props.rs`
+//!   (`backs_out_of_a_dead_end_and_takes_the_next_best_branch`,
+//!   `gives_up_cleanly_when_every_branch_is_a_dead_end`) and
+//!   `nav_free_space.rs` (`a_wall_ahead_in_still_air_is_a_dead_end`).
 //! - **Hold.** Every hold stops with the head where it points and names its
-//!   reason ([`ReasonCode`]). Checked by `nav_props.rs` and `onboard.rs`.
+//!   reason ([`ReasonCode`]). Checked by `nav_props.rs`
+//!   (`holds_when_both_channels_go_silent`) and `nav_free_space.rs`
+//!   (`a_wall_ahead_with_the_flow_coming_out_of_it_is_held_as_arrived`).
 //! - **Purity.** Same inputs, same decision, bit for bit: the determinism
 //!   digests and golden traces (`tests/tests/determinism.rs`,
-//!   `tests/tests/golden.rs`).
+//!   `tests/tests/golden.rs`, `nav_props.rs` `same_inputs_same_outputs_bit_for_bit`).
 
 use core::ops::ControlFlow;
 

@@ -251,7 +251,7 @@ pub struct DecisionRecord {
     pub branch: Option<BranchRecord>,
 }
 
-/// What [`decide`] tells the caller to write into a junction record.
+/// What [`decide`](super::decide) tells the caller to write into a junction record.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Verdict {
     /// Junction id.

@@ -1,6 +1,6 @@
 //! Speed limits and standoff: how far the head axis is from the walls it
 //! knows (the section fit, stored wall points, this frame's touches), and
-//! [`steer`], which every moving behaviour ends in: the behaviour's heading
+//! `steer`, which every moving behaviour ends in: the behaviour's heading
 //! plus centring and a push away from a wall closer than the required
 //! standoff; speed capped by standoff excess, throats, junctions, mode and
 //! the behaviour's own limit.
