@@ -13,7 +13,7 @@ use std::process::Command;
 /// `libm_digest()` as committed.
 const LIBM_DIGEST: u64 = 0x9a68_5bd4_cbd2_b230;
 /// `core_workload_digest()` as committed.
-const CORE_DIGEST: u64 = 0x8ef3_15a6_5e34_e61d;
+const CORE_DIGEST: u64 = 0x9070_3ddb_d5a8_a989;
 
 #[test]
 fn twice_in_process() {

@@ -13,15 +13,19 @@ use crate::map::{
 };
 
 use super::Step;
-use super::branch::resolve;
+use super::branch::{choose_branch, resolve};
 use super::config::DecideConfig;
 use super::hold::{give_up, hold};
 use super::observe::SOURCE_AHEAD_COS;
 use super::record::{
-    BackOutCause, DecideState, Decision, DecisionRecord, HealthView, Perception, Phase, ReasonCode,
-    SpeedLimit, Verdict,
+    BackOutCause, DeadEndRecord, DecideState, Decision, DecisionRecord, HealthView, Perception,
+    Phase, ReasonCode, SpeedLimit, StallLoad, Verdict,
 };
 use super::standoff::{Clearance, steer};
+
+/// A nose touch within this cosine (30 degrees) of the travel direction
+/// is straight ahead.
+const NOSE_AHEAD_COS: f64 = 0.866;
 
 /// While following or entering: start a back-out (or stop at the source)
 /// when the way ahead has ended. `Continue` when it has not.
@@ -59,12 +63,42 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
         || state
             .in_junction
             .is_some_and(|id| map.junctions.get(id).is_some());
-    if end_ahead && live && out_of_it && !junction_behind {
+    // The nose felt the way ahead narrower than the body needs, or the head
+    // stalled going forward: the way ahead has ended whatever the flow
+    // says (pressing on would press the skin through).
+    let nose_narrow = w
+        .and_then(|w| w.nose_width_m)
+        .filter(|&width| width < cfg.required_width_m());
+    let stall = cx.stalled.filter(|_| !cx.state.stall.last_reverse);
+    // A nose touch straight ahead of the travel direction: the way is
+    // blocked there (the head cannot slide off it).
+    let nose_ahead = w
+        .filter(|w| w.nose_loaded)
+        .and_then(|w| w.nose_point_m)
+        .and_then(|q| unit(sub(q, pos)))
+        .is_some_and(|u| dot(u, cx.last) > NOSE_AHEAD_COS);
+    if end_ahead
+        && live
+        && out_of_it
+        && !junction_behind
+        && cx.stalled.is_none()
+        && nose_narrow.is_none()
+    {
         let mut next = *state;
         next.phase = Phase::AtSource;
         return ControlFlow::Break(hold(cx.hold_heading, rec, ReasonCode::HoldAtSource, next));
     }
-    let cause = if end_ahead && (!live || out_of_it) {
+    let cause = if let Some(s) = stall {
+        Some(if s.load == StallLoad::NoseLoaded {
+            BackOutCause::Obstruction
+        } else {
+            BackOutCause::Stalled
+        })
+    } else if nose_narrow.is_some() {
+        Some(BackOutCause::NarrowingAhead)
+    } else if nose_ahead && !(live && out_of_it && !junction_behind) {
+        Some(BackOutCause::Obstruction)
+    } else if end_ahead && (!live || out_of_it) {
         Some(BackOutCause::DeadEnd)
     } else if throat_bad {
         Some(BackOutCause::ThroatTooNarrow)
@@ -75,6 +109,18 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
     };
     match cause {
         Some(cause) => {
+            let mut rec = rec;
+            rec.dead_end = Some(DeadEndRecord {
+                cause,
+                width_m: nose_narrow.or(match cause {
+                    BackOutCause::ThroatTooNarrow => {
+                        w.and_then(|w| w.throat).map(|t| t.min_clear_diameter_m)
+                    }
+                    _ => None,
+                }),
+                junction: None,
+                next_branch: None,
+            });
             ControlFlow::Break(start_back_out(map, p, pos, cause, rec, state, cfg, health))
         }
         None => ControlFlow::Continue(()),
@@ -142,9 +188,26 @@ pub(super) fn start_back_out<const S: usize, const W: usize, const JN: usize>(
         Phase::Enter { junction, .. } => Some(junction),
         _ => state.in_junction,
     };
+    let mut rec = rec;
+    let note = rec.dead_end.get_or_insert(DeadEndRecord {
+        cause,
+        width_m: None,
+        junction: None,
+        next_branch: None,
+    });
     let Some(j) = jid.and_then(|id| map.junctions.get(id)) else {
+        // No junction behind to back out to: hold, saying why.
         return give_up(rec, next);
     };
+    note.junction = Some(j.id);
+    // The branch that will be entered at the junction once back there.
+    let mut after = *j;
+    if let Some(c) = j.chosen
+        && let Some(b) = after.branches.get_mut(usize::from(c))
+    {
+        b.status = BranchStatus::DeadEnd(cause.dead_end_cause());
+    }
+    note.next_branch = choose_branch(&after, None, cfg).chosen;
     // Mark the entered branch dead.
     let mut status = [BranchStatus::Unexplored; MAX_BRANCHES];
     for (s, b) in status.iter_mut().zip(j.branches().iter()) {
@@ -216,7 +279,6 @@ pub(super) fn back_out_step<const S: usize, const W: usize, const JN: usize>(
         Some((t, true)) if dist_sq(t, pos) <= arrive2 => {
             // At the junction: take the next-best branch.
             let mut jj = *j;
-            let _ = cause;
             for b in jj.branches.iter_mut() {
                 if matches!(b.status, BranchStatus::Entered) {
                     b.status = BranchStatus::DeadEnd(DeadEndCause::Blocked);
@@ -225,7 +287,7 @@ pub(super) fn back_out_step<const S: usize, const W: usize, const JN: usize>(
             next.phase = Phase::Follow;
             next.in_junction = j.parent;
             let cl = Clearance::of_record(&rec);
-            resolve(
+            let mut d = resolve(
                 map,
                 &jj,
                 p,
@@ -236,7 +298,14 @@ pub(super) fn back_out_step<const S: usize, const W: usize, const JN: usize>(
                 cfg,
                 health,
                 Some(j.anchor_seq),
-            )
+            );
+            d.record.dead_end = Some(DeadEndRecord {
+                cause,
+                width_m: None,
+                junction: Some(jid),
+                next_branch: d.record.branch.and_then(|b| b.chosen),
+            });
+            d
         }
         Some((t, _)) => {
             next.phase = Phase::BackOut {

@@ -53,6 +53,18 @@ pub struct DecideConfig {
     /// Branches whose direction has cosine below this with the trunk
     /// upstream direction are "the way we came".
     pub came_from_cos: f64,
+    /// Skin compliance: how far the skin gives before the module's shell
+    /// meets the wall, m.
+    pub skin_compliance_m: f64,
+    /// Sensing latency: from a touch to the command that answers it (the
+    /// contact and pose sampling, one frame, the drive's response), s.
+    pub sensing_latency_s: f64,
+    /// Stall watch: the smallest distance a window must command, m (a few
+    /// odometry noise sigmas, so noise cannot fake progress).
+    pub stall_distance_m: f64,
+    /// Stall watch: a window whose odometry progress is below this fraction
+    /// of the commanded distance is a stall.
+    pub stall_fraction: f64,
 }
 
 impl DecideConfig {
@@ -60,6 +72,25 @@ impl DecideConfig {
     #[must_use]
     pub fn required_standoff_m(&self) -> f64 {
         self.robot_radius_m + self.standoff_margin_m
+    }
+    /// Fastest approach speed near walls: the speed at which the head,
+    /// touching a wall it had not felt, stops within the skin compliance
+    /// given the sensing latency (`compliance / latency`), m/s.
+    #[must_use]
+    pub fn touch_speed_m_per_s(&self) -> f64 {
+        self.skin_compliance_m / self.sensing_latency_s
+    }
+    /// Stall window at commanded speed `v`: the sensing latency twice (the
+    /// odometry shows motion that late, at both ends of the window) plus
+    /// the time to command `stall_distance_m`, s.
+    #[must_use]
+    pub fn stall_window_s(&self, speed_m_per_s: f64) -> f64 {
+        let v = if speed_m_per_s > self.creep_speed_m_per_s {
+            speed_m_per_s
+        } else {
+            self.creep_speed_m_per_s
+        };
+        2.0 * self.sensing_latency_s + self.stall_distance_m / v
     }
     /// Required branch / throat clear width, m.
     #[must_use]

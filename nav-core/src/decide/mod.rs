@@ -89,6 +89,7 @@ mod follow;
 mod hold;
 mod observe;
 mod record;
+mod stall;
 mod standoff;
 
 pub use crate::map::{head_forward_map, probe_to_map};
@@ -99,8 +100,9 @@ pub use observe::{
     WallObservation, mat3_to_arr, probe_cov_to_map,
 };
 pub use record::{
-    BackOutCause, BranchRecord, DecideState, Decision, DecisionRecord, FrameDisposition,
-    HealthFlags, HealthView, Perception, Phase, ReasonCode, SpeedLimit, Verdict,
+    BackOutCause, BranchRecord, DeadEndRecord, DecideState, Decision, DecisionRecord,
+    FrameDisposition, HealthFlags, HealthView, Perception, Phase, ReasonCode, SpeedLimit,
+    StallLoad, StallRecord, StallWatch, Verdict,
 };
 
 /// What every room reads of this step: the inputs and the few quantities
@@ -124,6 +126,8 @@ pub(super) struct Step<'a, 'p> {
     axis: Option<[f64; 3]>,
     /// Direction along the conduit for clearance geometry.
     along: [f64; 3],
+    /// Stall found by the progress watch this step.
+    stalled: Option<StallRecord>,
 }
 
 impl<'a, 'p> Step<'a, 'p> {
@@ -132,6 +136,7 @@ impl<'a, 'p> Step<'a, 'p> {
         p: &'a Perception<'p>,
         state: &'a DecideState,
         cfg: &'a DecideConfig,
+        stalled: Option<StallRecord>,
     ) -> Self {
         let last = unit(state.last_heading_map).unwrap_or([1.0, 0.0, 0.0]);
         let upstream = p.flow.velocity_dir_map.and_then(|v| unit(scale(v, -1.0)));
@@ -169,6 +174,7 @@ impl<'a, 'p> Step<'a, 'p> {
             hold_heading,
             axis,
             along,
+            stalled,
         }
     }
 
@@ -196,6 +202,8 @@ impl<'a, 'p> Step<'a, 'p> {
             ridge_gradient_per_m: None,
             speed_limit: SpeedLimit::Stopped,
             branch: None,
+            stall: self.stalled,
+            dead_end: None,
         }
     }
 }
@@ -209,7 +217,19 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     state: &DecideState,
     cfg: &DecideConfig,
 ) -> Decision {
-    let cx = Step::new(health, p, state, cfg);
+    let watch = stall::observe(&state.stall, p, cfg);
+    let cx = Step::new(health, p, state, cfg, watch.stalled);
+    let mut d = dispatch(map, &cx);
+    d.next.stall = stall::after(watch, d.speed_m_per_s, d.reverse);
+    d
+}
+
+/// The behaviours in order of precedence.
+fn dispatch<const S: usize, const W: usize, const JN: usize>(
+    map: &LocalMap<S, W, JN>,
+    cx: &Step<'_, '_>,
+) -> Decision {
+    let (p, state, cfg, health) = (cx.p, cx.state, cx.cfg, cx.health);
     let mut rec = cx.record();
     let Some(pos) = p.position_m else {
         return hold::hold(cx.hold_heading, rec, ReasonCode::HoldNoPose, *state);
@@ -220,7 +240,7 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     rec.centre_offset_m = cl.centre_offset_m;
     rec.nearest_wall_m = cl.nearest_wall_m;
 
-    if let ControlFlow::Break(d) = hold::must_hold(&cx, pos, rec) {
+    if let ControlFlow::Break(d) = hold::must_hold(cx, pos, rec) {
         return d;
     }
     if let Phase::BackOut {
@@ -229,16 +249,25 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
         cause,
     } = state.phase
     {
+        if cx.stalled.is_some() {
+            // The way back is blocked as well: nothing safe but to hold,
+            // for good.
+            let next = DecideState {
+                phase: Phase::GaveUp,
+                ..*state
+            };
+            return hold::hold(cx.hold_heading, rec, ReasonCode::HoldStalled, next);
+        }
         return back_out::back_out_step(
             map, p, pos, junction, cursor_seq, cause, rec, state, cfg, health,
         );
     }
-    if let ControlFlow::Break(d) = back_out::trigger(map, &cx, pos, rec) {
+    if let ControlFlow::Break(d) = back_out::trigger(map, cx, pos, rec) {
         return d;
     }
-    match branch::junction_step(map, &cx, pos, &cl, rec) {
+    match branch::junction_step(map, cx, pos, &cl, rec) {
         ControlFlow::Break(d) => d,
-        ControlFlow::Continue(next) => follow::follow_step(&cx, pos, &cl, rec, next),
+        ControlFlow::Continue(next) => follow::follow_step(cx, pos, &cl, rec, next),
     }
 }
 

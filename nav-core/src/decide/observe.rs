@@ -140,6 +140,15 @@ pub struct WallObservation {
     pub contact_suspect_mask: u64,
     /// Bit k: contact sensor k failed.
     pub contact_failed_mask: u64,
+    /// The nose is loaded this frame: a head contact whose normal leans
+    /// forward (a nose-cap sensor, or a measured normal facing ahead).
+    pub nose_loaded: bool,
+    /// Centroid of this frame's nose contacts, map frame, m.
+    pub nose_point_m: Option<[f64; 3]>,
+    /// Clear width ahead the nose measured this frame: the widest span
+    /// across the head axis between two nose contacts on opposite sides
+    /// (more than 90 degrees apart around the axis), m.
+    pub nose_width_m: Option<f64>,
 }
 
 impl WallObservation {
@@ -155,6 +164,9 @@ impl WallObservation {
         wall_point_count: 0,
         contact_suspect_mask: 0,
         contact_failed_mask: 0,
+        nose_loaded: false,
+        nose_point_m: None,
+        nose_width_m: None,
     };
 
     /// The valid openings.

@@ -18,14 +18,24 @@ pub enum BackOutCause {
     ThroatTooNarrow,
     /// Every branch of a child junction failed.
     ChildExhausted,
+    /// The head stalled with its nose loaded: something across the way
+    /// ahead that the body cannot pass.
+    Obstruction,
+    /// The head stalled with nothing felt ahead (the way is blocked where
+    /// no sensor reaches, or the body is wedged).
+    Stalled,
+    /// The nose felt the way ahead narrower than the body needs.
+    NarrowingAhead,
 }
 
 impl BackOutCause {
     pub(super) const fn dead_end_cause(self) -> DeadEndCause {
         match self {
-            Self::DeadEnd | Self::ChildExhausted => DeadEndCause::Blocked,
+            Self::DeadEnd | Self::ChildExhausted | Self::Obstruction | Self::Stalled => {
+                DeadEndCause::Blocked
+            }
             Self::LostFlow => DeadEndCause::LostFlow,
-            Self::ThroatTooNarrow => DeadEndCause::ThroatTooNarrow,
+            Self::ThroatTooNarrow | Self::NarrowingAhead => DeadEndCause::ThroatTooNarrow,
         }
     }
 }
@@ -78,6 +88,83 @@ pub struct DecideState {
     pub in_junction: Option<u16>,
     /// The last commanded heading, unit, map frame.
     pub last_heading_map: [f64; 3],
+    /// Progress watch for stall detection.
+    pub stall: StallWatch,
+}
+
+/// Progress watch: the window over which odometry progress is compared
+/// with the commanded speed (see `stall.rs`).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct StallWatch {
+    /// When the current window began, s (`None`: no window open).
+    pub since_s: Option<f64>,
+    /// Head position at the start of the window, map frame, m.
+    pub from_m: [f64; 3],
+    /// Distance commanded since the window began, m.
+    pub commanded_m: f64,
+    /// Time of the last decision, s.
+    pub last_time_s: f64,
+    /// Speed commanded at the last decision, m/s.
+    pub last_speed_m_per_s: f64,
+    /// The last decision moved tail first.
+    pub last_reverse: bool,
+    /// The last closed window showed a stall.
+    pub stalled: Option<StallRecord>,
+}
+
+impl StallWatch {
+    /// Nothing watched yet.
+    pub const NEW: Self = Self {
+        since_s: None,
+        from_m: [0.0; 3],
+        commanded_m: 0.0,
+        last_time_s: f64::NEG_INFINITY,
+        last_speed_m_per_s: 0.0,
+        last_reverse: false,
+        stalled: None,
+    };
+}
+
+/// What the skin felt while the head stalled.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
+pub enum StallLoad {
+    /// The nose was loaded: an obstruction ahead.
+    NoseLoaded,
+    /// Only the body's sides were touching (wedged or dragging).
+    SidesOnly,
+    /// Nothing was felt.
+    Unfelt,
+}
+
+/// A stall: the head did not advance as commanded over a whole window.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
+pub struct StallRecord {
+    /// What the skin felt.
+    pub load: StallLoad,
+    /// Window length, s (from the speed and the sensing latency).
+    pub window_s: f64,
+    /// Distance commanded over the window, less what the sensing latency
+    /// still hides, m.
+    pub expected_m: f64,
+    /// Distance the odometry shows over the window, m.
+    pub advanced_m: f64,
+}
+
+/// The dead end behind a back-out or a hold: why, and what comes next.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
+pub struct DeadEndRecord {
+    /// Why the way ahead ended.
+    pub cause: BackOutCause,
+    /// Clear width the nose measured ahead, when it measured one, m.
+    pub width_m: Option<f64>,
+    /// The junction backed out to (`None`: none known, the robot holds).
+    pub junction: Option<u16>,
+    /// The branch to be entered next there (`None`: nothing left at that
+    /// junction; the failure passes up or the robot holds).
+    pub next_branch: Option<u8>,
 }
 
 /// The reason code of a decision.
@@ -114,6 +201,8 @@ pub enum ReasonCode {
     GaveUp,
     /// Arrived: a wall across the path, and the flow comes out of it.
     HoldAtSource,
+    /// Stalled while backing out: the way back is blocked too; holding.
+    HoldStalled,
 }
 
 /// What capped the speed.
@@ -136,6 +225,8 @@ pub enum SpeedLimit {
     BackOut,
     /// Stopped (sampling or holding).
     Stopped,
+    /// The nose is touching: creep while sliding off.
+    Touch,
 }
 
 /// The branch comparison behind a decision at a junction.
@@ -249,6 +340,10 @@ pub struct DecisionRecord {
     pub speed_limit: SpeedLimit,
     /// Branch comparison, when at a junction.
     pub branch: Option<BranchRecord>,
+    /// Stall detected over the last window.
+    pub stall: Option<StallRecord>,
+    /// The dead end found this step: its cause and the next branch.
+    pub dead_end: Option<DeadEndRecord>,
 }
 
 /// What [`decide`](super::decide) tells the caller to write into a junction record.
@@ -301,6 +396,9 @@ pub struct Perception<'a> {
     pub time_s: f64,
     /// Head position, map frame, m (`None`: no pose yet).
     pub position_m: Option<[f64; 3]>,
+    /// The position was reported this frame (not held over a pose
+    /// dropout).
+    pub pose_fresh: bool,
     /// Head forward axis, map frame.
     pub forward_map: [f64; 3],
     /// Fused flow.

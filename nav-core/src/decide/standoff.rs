@@ -14,6 +14,10 @@ use super::record::{
     DecideState, Decision, DecisionRecord, HealthView, Perception, ReasonCode, SpeedLimit, Verdict,
 };
 
+/// After a nose touch the heading leans this far (as a fraction of its
+/// length) away from the touch, beyond parallel to the wall.
+const NOSE_RELEASE: f64 = 0.2;
+
 /// What the decision knows of the clearance around the head axis.
 pub(super) struct Clearance {
     pub(super) standoff_m: Option<f64>,
@@ -188,6 +192,21 @@ pub(super) fn steer(
     {
         h = add(h, scale(a, clamp01((required - d) / required)));
     }
+    // A nose touch: take out the part of the heading that would press the
+    // nose further into what it touches, and a little more, so the head
+    // slides off it (a touch straight ahead is a back-out trigger, not
+    // this). Not while retracing: the head then moves away from it.
+    let nose = p
+        .wall
+        .filter(|w| w.nose_loaded && base_limit != SpeedLimit::BackOut)
+        .and_then(|w| w.nose_point_m)
+        .and_then(|q| unit(sub(q, pos)));
+    if let Some(u) = nose {
+        let into = dot(h, u);
+        if into > 0.0 {
+            h = sub(h, scale(u, into + NOSE_RELEASE * norm(h)));
+        }
+    }
     let heading = unit(h).unwrap_or(dir);
 
     let cruise = cfg.cruise_speed_m_per_s;
@@ -262,6 +281,10 @@ pub(super) fn steer(
     }
     if base_limit == SpeedLimit::BackOut {
         cap(creep, SpeedLimit::BackOut, &mut v, &mut limit);
+    }
+    if nose.is_some() && v >= creep {
+        v = creep;
+        limit = SpeedLimit::Touch;
     }
     if !(v.is_finite() && v >= 0.0) {
         v = 0.0;
