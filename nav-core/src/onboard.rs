@@ -183,7 +183,7 @@ pub struct FrameNavigator<
     const W: usize,
     const JN: usize,
 > {
-    config: OnboardConfig<P, M, S>,
+    config: StepSettings,
     body: Body<M, S>,
     solver: ProbeSolver<P>,
     tactile: TactileMap<TW>,
@@ -198,6 +198,21 @@ pub struct FrameNavigator<
     head_arc_m: f64,
     body_length_m: f64,
     counters: OnboardCounters,
+}
+
+/// The settings a step reads that no stage keeps itself (the body, the
+/// probe layout and the decision settings live in their stages: one copy
+/// of each in the state).
+#[derive(Debug, Clone, Copy, PartialEq)]
+struct StepSettings {
+    gas: IdealGas,
+    assumed_static_temperature_k: f64,
+    section: SectionSettings,
+    throat: ThroatSettings,
+    openings: OpeningSettings,
+    section_every: u32,
+    throat_every: u32,
+    throat_stations: usize,
 }
 
 /// A frame navigator for the demo robots: 7 ports, up to 8 modules (7
@@ -259,7 +274,16 @@ impl<
             .map(|m| m.length_m)
             .sum();
         Ok(Self {
-            config,
+            config: StepSettings {
+                gas: config.gas,
+                assumed_static_temperature_k: config.assumed_static_temperature_k,
+                section: config.section,
+                throat: config.throat,
+                openings: config.openings,
+                section_every: config.section_every,
+                throat_every: config.throat_every,
+                throat_stations: config.throat_stations,
+            },
             body,
             solver,
             tactile,
@@ -301,10 +325,12 @@ impl<
         self.counters
     }
 
-    /// The configuration.
+    /// The body (its configuration: [`Body::config`]). The probe layout
+    /// is the solver's and the decision settings the navigator's
+    /// ([`Navigator::config`]); the navigator keeps one copy of each.
     #[must_use]
-    pub const fn config(&self) -> &OnboardConfig<P, M, S> {
-        &self.config
+    pub const fn body(&self) -> &Body<M, S> {
+        &self.body
     }
 
     /// One step.
