@@ -95,22 +95,29 @@ fn blocked(w: WallObservation) -> (Vec<Command>, f64, f64) {
 
 #[test]
 fn a_head_that_does_not_advance_is_a_stall_with_its_reason() {
-    let (cmds, t0, t1) = blocked(WallObservation::EMPTY);
-    let c = cmds.last().expect("commands");
-    let s = c.record.stall.expect("a stall record");
-    assert_eq!(s.load, StallLoad::Unfelt);
+    // Nothing felt and no junction behind: the stall is recorded, typed,
+    // and the robot keeps creeping (no dead end without a way back).
+    let (mut n, mut t, x) = driven();
+    let t0 = t;
     let cfg = NavConfig::for_robot(R).decide;
+    let mut first = None;
+    let mut v0 = None;
+    for _ in 0..300 {
+        let c = n.step(&obs(t, x, WallObservation::EMPTY));
+        v0.get_or_insert(c.speed_m_per_s);
+        if let Some(s) = c.record.stall {
+            first = Some((t, s, c));
+            break;
+        }
+        t += 0.01;
+    }
+    let (t1, s, c) = first.expect("a stall record within 3 s");
+    assert_eq!(s.load, StallLoad::Unfelt);
     assert!(s.advanced_m < cfg.stall_fraction * s.expected_m, "{s:?}");
-    let d = c.record.dead_end.expect("dead end");
-    assert_eq!(d.cause, BackOutCause::Stalled);
-    // No junction behind to back out to: held, saying why.
-    assert_eq!(d.junction, None);
-    assert_eq!(c.record.reason, ReasonCode::GaveUp);
-    assert_eq!(c.speed_m_per_s, 0.0);
-    assert_eq!(c.mode, OperatingMode::Hold);
+    assert!(c.record.dead_end.is_none(), "{c:?}");
+    assert!(c.speed_m_per_s > 0.0 && c.speed_m_per_s <= cfg.feel_speed_m_per_s);
     // Not before a whole window at the commanded speed, and within two.
-    let v = cmds.first().expect("commands").speed_m_per_s;
-    let window = cfg.stall_window_s(v);
+    let window = cfg.stall_window_s(v0.unwrap_or(0.0));
     assert!(
         t1 - t0 >= window - 0.011,
         "after {} s, window {window}",

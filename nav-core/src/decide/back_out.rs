@@ -69,7 +69,15 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
     let nose_narrow = w
         .and_then(|w| w.nose_width_m)
         .filter(|&width| width < cfg.required_width_m());
-    let stall = cx.stalled.filter(|_| !cx.state.stall.last_reverse);
+    // A stall ends the way when the nose is loaded (an obstruction ahead).
+    // A stall with nothing felt ahead ends it only with a junction behind
+    // to back out to: without one it is recorded, and the robot keeps
+    // creeping (a robot without nose-cap sensors cannot tell a wall it
+    // does not feel from slip, and holding for good there lost reachable
+    // worlds).
+    let stall = cx.stalled.filter(|s| {
+        !cx.state.stall.last_reverse && (s.load == StallLoad::NoseLoaded || junction_behind)
+    });
     // A nose touch straight ahead of the travel direction: the way is
     // blocked there (the head cannot slide off it).
     let nose_ahead = w

@@ -11,7 +11,10 @@
 //! stall always belongs to one direction of travel.
 //!
 //! What the skin felt when the window closed types the stall
-//! ([`StallLoad`]): with the nose loaded it is an obstruction ahead.
+//! ([`StallLoad`]): with the nose loaded it is an obstruction ahead, and
+//! ends the way; with nothing felt ahead it ends the way only when a
+//! junction is behind to back out to (`back_out.rs`), and is otherwise
+//! recorded while the robot creeps on.
 //! Checked by `tests/tests/nav_walls.rs`.
 
 use crate::map::dist_sq;
