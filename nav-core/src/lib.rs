@@ -36,6 +36,7 @@ extern crate std;
 pub mod body;
 pub mod decide;
 pub mod digest;
+pub mod flow_window;
 pub mod frame;
 pub mod gas;
 pub mod health;
