@@ -390,6 +390,12 @@ pub enum ReasonCode {
     FollowByFeel,
     /// Tactile failed: creeping upstream on flow alone.
     FollowFlowOnly,
+    /// Flow too weak for one frame: following the windowed estimate
+    /// upstream slowly.
+    FollowWeakFlow,
+    /// Flow too weak for one frame and not yet resolved by the windowed
+    /// estimate: stopped, integrating.
+    DwellWeakFlow,
     /// Pointing into a branch to sample its flow.
     SampleBranch,
     /// Entering the chosen branch.
@@ -1333,7 +1339,7 @@ fn steer(
     }
     match health.mode {
         OperatingMode::FlowOnly => cap(creep, SpeedLimit::Mode, &mut v, &mut limit),
-        OperatingMode::FlowDegraded | OperatingMode::TactileOnly => {
+        OperatingMode::FlowDegraded | OperatingMode::FlowWeak | OperatingMode::TactileOnly => {
             cap(
                 cfg.junction_speed_m_per_s,
                 SpeedLimit::Mode,
