@@ -16,7 +16,7 @@ use serde::{Deserialize, Serialize};
 use std::io::{BufRead, Write};
 
 /// Outcome of one job: one seed of one scenario.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, Default)]
 pub struct SeedResult {
     /// Job index in the campaign's job list.
     pub job: u64,
@@ -40,6 +40,55 @@ pub struct SeedResult {
     pub trace_digest: String,
     /// Why the run failed, when it did (an error, a timeout, a give-up).
     pub failure: Option<String>,
+    /// Times the skin was pressed past its compliance (strikes too).
+    #[serde(default)]
+    pub skin_overpress: u32,
+    /// Steps with some skin sensor touching a wall (fine).
+    #[serde(default)]
+    pub touch_steps: u64,
+    /// Branch choices judged at junctions (policy-true).
+    #[serde(default)]
+    pub junction_calls: u32,
+    /// Of those, the clear ones (flows differ by 20 % or more).
+    #[serde(default)]
+    pub clear_calls: u32,
+    /// Clear calls that went wrong.
+    #[serde(default)]
+    pub wrong_clear_calls: u32,
+    /// True path length over distance travelled, when reached (1 is the
+    /// shortest possible).
+    #[serde(default)]
+    pub path_efficiency: Option<f64>,
+    /// Whether a source is reachable (otherwise a safe hold is the right
+    /// outcome).
+    #[serde(default = "yes")]
+    pub expect_reach: bool,
+    /// The world's drawn parameters (generated worlds), `key=value ...`.
+    #[serde(default)]
+    pub parameters: String,
+}
+
+fn yes() -> bool {
+    true
+}
+
+impl SeedResult {
+    /// Whether the run did the right thing: reached the source where one
+    /// is reachable, held without a strike where none is.
+    #[must_use]
+    pub fn succeeded(&self) -> bool {
+        if self.expect_reach {
+            self.reached
+        } else {
+            !self.reached && self.strike_free() && self.failure.as_deref() != Some("error")
+        }
+    }
+
+    /// No strike of either kind.
+    #[must_use]
+    pub fn strike_free(&self) -> bool {
+        self.wall_strikes == 0 && self.skin_overpress == 0
+    }
 }
 
 /// Which part of the campaign this process runs.
@@ -427,6 +476,7 @@ mod tests {
             held_s: 0.0,
             trace_digest: format!("{:016x}", j.seed.wrapping_mul(0x9e37_79b9_7f4a_7c15)),
             failure: None,
+            ..SeedResult::default()
         }
     }
 

@@ -1,5 +1,6 @@
 //! Host tools around `nav-core`: the log format, the simulator, the runner,
-//! trace diffs, campaigns, plots and rig-log import.
+//! trace diffs, campaigns, generated worlds and their scorecard, plots and
+//! rig-log import.
 
 pub mod campaign;
 pub mod diff;
@@ -8,4 +9,5 @@ pub mod log;
 pub mod plot;
 pub mod record;
 pub mod run;
+pub mod scorecard;
 pub mod sim;

@@ -185,6 +185,57 @@ enum Command {
     },
     /// List the built-in demo scenarios.
     Scenarios,
+    /// Generate a world of a family from a seed and write it as a scenario
+    /// file (to standard output without `-o`).
+    World {
+        /// The family, optionally with fixed parameters:
+        /// `fork` or `fork,ratio=2.5,branches=3` (`replay worlds` lists them).
+        family: String,
+        /// World seed: the same family, seed and parameters give the same
+        /// world.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        /// Scenario file to write.
+        #[arg(short = 'o', long = "out", value_name = "FILE")]
+        out: Option<PathBuf>,
+    },
+    /// List the world families and the parameters each draws.
+    Worlds,
+    /// Run generated worlds of every family (or those named) through the
+    /// navigator and print one row per family; shardable like `campaign`.
+    Scorecard {
+        /// Families (repeatable; default all). A family may carry fixed
+        /// parameters, `--family fork,ratio=1.5`.
+        #[arg(long = "family", value_name = "FAMILY")]
+        families: Vec<String>,
+        /// Worlds per family.
+        #[arg(long, default_value_t = 20)]
+        worlds: u64,
+        /// First world seed.
+        #[arg(long, default_value_t = 1)]
+        first_seed: u64,
+        /// Worker threads (0: one per core).
+        #[arg(long, default_value_t = 0)]
+        threads: usize,
+        /// Run only shard i of n (0-based), e.g. `--shard 3/16`.
+        #[arg(long, value_name = "I/N")]
+        shard: Option<String>,
+        /// Results file (JSON Lines; `merge` combines shards).
+        #[arg(
+            short = 'o',
+            long = "out",
+            value_name = "FILE",
+            default_value = "out/scorecard.jsonl"
+        )]
+        out: PathBuf,
+        /// Stop each run after this much simulated time, s (default: each
+        /// world's own duration).
+        #[arg(long, value_name = "S")]
+        max_time: Option<f64>,
+        /// No progress bar.
+        #[arg(long)]
+        quiet: bool,
+    },
     /// Simulate a scenario with the navigator in the loop and record what
     /// the robot sensed as a log.
     Generate {
@@ -355,6 +406,35 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             );
             Ok(ExitCode::SUCCESS)
         }
+        Command::World { family, seed, out } => world_command(&family, seed, out.as_deref()),
+        Command::Worlds => {
+            use replay::sim::worlds::{COMMON_KEYS, Family};
+            for f in Family::ALL {
+                outln!("world:{:<17} {}", f.name(), f.summary());
+                outln!("{:<23} draws {}", "", f.keys().join(", "));
+            }
+            outln!("every family also draws {}", COMMON_KEYS.join(", "));
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Scorecard {
+            families,
+            worlds,
+            first_seed,
+            threads,
+            shard,
+            out,
+            max_time,
+            quiet,
+        } => scorecard_command(
+            &families,
+            worlds,
+            first_seed,
+            threads,
+            shard.as_deref(),
+            &out,
+            max_time,
+            quiet,
+        ),
         Command::Scenarios => {
             for (key, text) in replay::sim::demos::DEMOS {
                 let desc = replay::sim::scenario::Scenario::from_toml_str(text)
@@ -429,7 +509,10 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             salvage,
             max_time,
         } => {
-            if !input.starts_with("demo:") && !std::path::Path::new(&input).exists() {
+            if !input.starts_with("demo:")
+                && !input.starts_with("world:")
+                && !std::path::Path::new(&input).exists()
+            {
                 return Err(format!("{input}: no such file"));
             }
             let trace_w = create(&trace)?;
@@ -528,8 +611,12 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
                 )?);
             }
             let (plan, results) = merge(shards)?;
-            out!("{}", format_table(&summarise(&plan, &results)));
-            print_failures(&results, None);
+            if plan.scenarios.iter().all(|s| s.starts_with("world:")) {
+                print_scorecard(&plan, &results, None);
+            } else {
+                out!("{}", format_table(&summarise(&plan, &results)));
+                print_failures(&results, None);
+            }
             if let Some(out) = out {
                 let mut w = create(&out)?;
                 write_results(&mut w, &plan, Shard::ALL, &results).map_err(|e| e.to_string())?;
@@ -567,6 +654,135 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
 
 /// The failing runs, each with the one command that reruns it (with the
 /// campaign's time limit, when it had one; merged shards do not record it).
+/// `replay world`: generate, write, and say what was drawn (on standard
+/// error when the file goes to standard output).
+fn world_command(
+    family: &str,
+    seed: u64,
+    out: Option<&std::path::Path>,
+) -> Result<ExitCode, String> {
+    use replay::sim::worlds::{WorldSpec, generate};
+    let spec = WorldSpec::parse(family).map_err(|e| e.to_string())?;
+    let (world, sim) = generate(&spec, seed).map_err(|e| e.to_string())?;
+    let about = format!(
+        "{}: {}; true path {:.1} m; drawn {}",
+        world.scenario.name,
+        world.scenario.description,
+        sim.true_path().map_or(f64::NAN, |p| p.length_m),
+        world.parameter_text()
+    );
+    match out {
+        Some(path) => {
+            let mut w = create(path)?;
+            w.write_all(world.toml.as_bytes())
+                .and_then(|()| w.flush())
+                .map_err(|e| format!("{}: {e}", path.display()))?;
+            outln!("{about}");
+            outln!("wrote {}", path.display());
+        }
+        None => {
+            out!("{}", world.toml);
+            eprintln!("{about}");
+        }
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+/// `replay scorecard`: a campaign over `world:` scenarios and its rows.
+#[allow(clippy::too_many_arguments)]
+fn scorecard_command(
+    families: &[String],
+    worlds: u64,
+    first_seed: u64,
+    threads: usize,
+    shard: Option<&str>,
+    out: &std::path::Path,
+    max_time: Option<f64>,
+    quiet: bool,
+) -> Result<ExitCode, String> {
+    use replay::campaign::{CampaignPlan, Shard, run, write_results};
+    use replay::sim::worlds::{Family, WorldSpec};
+    if worlds == 0 {
+        return Err("--worlds 0: nothing to run".into());
+    }
+    let names: Vec<String> = if families.is_empty() {
+        Family::ALL.iter().map(|f| f.name().to_string()).collect()
+    } else {
+        families.to_vec()
+    };
+    let mut scenarios = Vec::with_capacity(names.len());
+    for n in &names {
+        let spec = WorldSpec::parse(n).map_err(|e| e.to_string())?;
+        scenarios.push(format!("world:{}", spec.text()));
+    }
+    let shard = match shard {
+        Some(t) => Shard::parse(t)?,
+        None => Shard::ALL,
+    };
+    let plan = CampaignPlan {
+        scenarios,
+        first_seed,
+        seeds: worlds,
+    };
+    let jobs = plan.jobs(shard).len() as u64;
+    let bar = if quiet {
+        indicatif::ProgressBar::hidden()
+    } else {
+        indicatif::ProgressBar::new(jobs)
+    };
+    bar.set_style(
+        indicatif::ProgressStyle::with_template(
+            "{bar:40} {pos}/{len} worlds  {elapsed} elapsed, {eta} left",
+        )
+        .map_err(|e| e.to_string())?,
+    );
+    let started = std::time::Instant::now();
+    let results = run(
+        &plan,
+        shard,
+        threads,
+        |job| replay::run::campaign_job(job, max_time),
+        || bar.inc(1),
+    )?;
+    bar.finish_and_clear();
+    let mut w = create(out)?;
+    write_results(&mut w, &plan, shard, &results).map_err(|e| e.to_string())?;
+    w.flush().map_err(|e| format!("{}: {e}", out.display()))?;
+    if shard == Shard::ALL {
+        print_scorecard(&plan, &results, max_time);
+    }
+    outln!(
+        "{} worlds in {:.1} s wall time; results in {}",
+        results.len(),
+        started.elapsed().as_secs_f64(),
+        out.display()
+    );
+    Ok(ExitCode::SUCCESS)
+}
+
+/// The scorecard rows, their machine-readable lines and the failing worlds.
+fn print_scorecard(
+    plan: &replay::campaign::CampaignPlan,
+    results: &[replay::campaign::SeedResult],
+    max_time: Option<f64>,
+) {
+    use replay::scorecard::{format_table, machine_line, rerun_commands, rows};
+    let rows = rows(plan, results);
+    out!("{}", format_table(&rows));
+    for r in &rows {
+        outln!("{}", machine_line(r));
+    }
+    let failing: usize = rows.iter().map(|r| r.failing.len()).sum();
+    if failing > 0 {
+        outln!("failing worlds ({failing}), each regenerated and rerun by:");
+        for (r, s) in rows.iter().zip(&plan.scenarios) {
+            for (seed, why) in &r.failing {
+                outln!("  {}    # {why}", rerun_commands(s, *seed, max_time));
+            }
+        }
+    }
+}
+
 fn print_failures(results: &[replay::campaign::SeedResult], max_time: Option<f64>) {
     let limit = max_time.map_or(String::new(), |t| format!(" --max-time {t}"));
     let failing: Vec<_> = results

@@ -522,14 +522,22 @@ fn counters(n: &AnyNavigator) -> (u64, u64) {
     (c.probe_errors, c.tactile_errors)
 }
 
-/// Build a simulator from `demo:<key>` or a scenario file path, with an
-/// optional seed override.
+/// Build a simulator from `demo:<key>`, `world:<family>[,key=value...]`
+/// (a generated world; the seed picks the world, default 1) or a scenario
+/// file path, with an optional seed override.
 ///
 /// # Errors
 /// [`RunError::Sim`] when the scenario cannot be read, is refused, or its
 /// flow cannot be solved.
 pub fn build_sim(input: &str, seed: Option<u64>) -> Result<Sim, RunError> {
     use crate::sim::scenario::Scenario;
+    if let Some(spec) = input.strip_prefix("world:") {
+        let spec = crate::sim::worlds::WorldSpec::parse(spec)
+            .map_err(|e| RunError::Sim(crate::sim::SimError::Generate(e)))?;
+        let (_, sim) = crate::sim::worlds::generate(&spec, seed.unwrap_or(1))
+            .map_err(|e| RunError::Sim(crate::sim::SimError::Generate(e)))?;
+        return Ok(sim);
+    }
     let mut sc = if let Some(key) = input.strip_prefix("demo:") {
         match crate::sim::demos::demo(key) {
             Some(r) => r.map_err(|e| RunError::Sim(e.into()))?,
@@ -809,7 +817,8 @@ pub fn header_for(sim: &Sim, input: &str) -> LogHeader {
 }
 
 /// One campaign job: a live run of `job.scenario` with `job.seed`, the
-/// trace digested but not kept.
+/// trace digested but not kept. A `world:` scenario is generated from the
+/// seed, and its drawn parameters go into the result.
 #[must_use]
 pub fn campaign_job(
     job: &crate::campaign::Job,
@@ -819,18 +828,24 @@ pub fn campaign_job(
         job: job.index,
         scenario: job.scenario.clone(),
         seed: job.seed,
-        reached: false,
-        time_to_source_s: None,
-        wrong_branches: 0,
         min_standoff_m: f64::NAN,
-        wall_strikes: 0,
-        held_s: 0.0,
-        trace_digest: String::new(),
         failure: Some(why),
+        expect_reach: true,
+        ..crate::campaign::SeedResult::default()
     };
-    let sim = match build_sim(&job.scenario, Some(job.seed)) {
-        Ok(s) => s,
-        Err(e) => return fail(e.to_string()),
+    let built = if let Some(spec) = job.scenario.strip_prefix("world:") {
+        crate::sim::worlds::WorldSpec::parse(spec)
+            .and_then(|w| crate::sim::worlds::generate(&w, job.seed))
+            .map(|(w, sim)| (sim, w.parameter_text()))
+            .map_err(|e| format!("world: {e}"))
+    } else {
+        build_sim(&job.scenario, Some(job.seed))
+            .map(|sim| (sim, String::new()))
+            .map_err(|e| e.to_string())
+    };
+    let (sim, parameters) = match built {
+        Ok(b) => b,
+        Err(e) => return fail(e),
     };
     let opts = LiveOptions {
         max_time_s,
@@ -839,23 +854,38 @@ pub fn campaign_job(
     match run_live::<_, std::io::Sink>(&job.scenario, sim, std::io::sink(), None, &opts) {
         Ok((res, _)) => {
             let s = res.summary;
-            let t = s.truth.as_ref();
+            let Some(t) = s.truth.as_ref() else {
+                return fail("no truth from a live run".into());
+            };
+            let count = |f: &dyn Fn(&crate::sim::policy::JunctionCall) -> bool| {
+                u32::try_from(t.junction_calls.iter().filter(|c| f(c)).count()).unwrap_or(u32::MAX)
+            };
+            let efficiency = (t.reached_source && t.distance_travelled_m > 0.0)
+                .then(|| t.true_path_length_m / t.distance_travelled_m);
             crate::campaign::SeedResult {
                 job: job.index,
                 scenario: job.scenario.clone(),
                 seed: job.seed,
-                reached: t.is_some_and(|t| t.reached_source),
-                time_to_source_s: t.and_then(|t| t.reached_at_s),
-                wrong_branches: t.map_or(0, |t| t.wrong_branches),
-                min_standoff_m: t.map_or(f64::NAN, |t| t.min_standoff_m),
-                wall_strikes: t.map_or(0, |t| t.wall_strikes),
-                held_s: t.map_or(0.0, |t| t.time_held_s),
-                trace_digest: s.trace.trace_digest,
-                failure: if t.is_some_and(|t| t.reached_source) {
+                reached: t.reached_source,
+                time_to_source_s: t.reached_at_s,
+                wrong_branches: t.wrong_branches,
+                min_standoff_m: t.min_standoff_m,
+                wall_strikes: t.wall_strikes,
+                held_s: t.time_held_s,
+                trace_digest: s.trace.trace_digest.clone(),
+                failure: if t.reached_source {
                     None
                 } else {
-                    Some(s.outcome)
+                    Some(s.outcome.clone())
                 },
+                skin_overpress: t.skin_overpress_events,
+                touch_steps: t.touch_steps,
+                junction_calls: count(&|_| true),
+                clear_calls: count(&|c| c.clear),
+                wrong_clear_calls: count(&|c| c.clear && c.wrong),
+                path_efficiency: efficiency,
+                expect_reach: t.true_path_passable,
+                parameters,
             }
         }
         Err(e) => fail(e.to_string()),

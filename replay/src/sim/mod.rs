@@ -32,6 +32,7 @@ pub mod friction;
 pub mod geometry;
 pub mod network;
 pub mod nozzle;
+pub mod policy;
 pub mod probe_truth;
 pub mod rng;
 pub mod scenario;
@@ -39,6 +40,7 @@ pub mod sensors;
 pub mod truth;
 pub mod vec3;
 pub mod world;
+pub mod worlds;
 
 use crate::record::{FrameRecord, GasSpec, RobotSpec};
 use body::Body;
@@ -79,6 +81,8 @@ pub enum SimError {
     World(WorldError),
     /// No built-in demo has that key.
     UnknownDemo(String),
+    /// No world could be generated.
+    Generate(worlds::WorldGenError),
 }
 
 impl core::fmt::Display for SimError {
@@ -86,6 +90,7 @@ impl core::fmt::Display for SimError {
         match self {
             Self::Scenario(e) => write!(f, "scenario: {e}"),
             Self::World(e) => write!(f, "{e}"),
+            Self::Generate(e) => write!(f, "world: {e}"),
             Self::UnknownDemo(k) => {
                 let keys: Vec<&str> = demos::DEMOS.iter().map(|d| d.0).collect();
                 write!(f, "no demo {k:?}; demos: {}", keys.join(", "))
@@ -134,12 +139,16 @@ pub struct Sim {
     head_velocity: V3,
     sample: FlowSample,
     struck_last: bool,
+    overpressed_last: bool,
     outcome: Outcome,
-    on_path: Vec<bool>,
-    node_zone_m: Vec<f64>,
-    wrong_in: Option<usize>,
+    judge: policy::PolicyJudge,
     track_standoff: bool,
 }
+
+/// The standoff a branch's mouth must leave around the body for the policy
+/// to count it passable, m (1 cm: common practice for a crawler's minimum
+/// working clearance, not a published figure).
+pub const PASSABLE_STANDOFF_M: f64 = 0.01;
 
 impl Sim {
     /// Build from a validated scenario: solve the flow, lay the robot
@@ -187,18 +196,15 @@ impl Sim {
         }
         let walls = WallSamples::new(g, scenario.scoring.wall_sample_spacing_m);
         let path = TruePath::find(&scenario, g, &hit, scenario.robot_radius_m());
-        let mut on_path = vec![false; scenario.conduits.len()];
-        if let Some(p) = &path {
-            for &c in &p.conduits {
-                on_path[c] = true;
-            }
-        }
-        let mut node_zone_m = vec![0.0_f64; scenario.nodes.len()];
-        for c in &g.conduits {
-            for n in [c.from, c.to] {
-                node_zone_m[n] = node_zone_m[n].max(1.5 * c.max_radius_m + 0.2);
-            }
-        }
+        let flows: Vec<f64> = (0..scenario.conduits.len())
+            .map(|c| world.mass_flow_kg_per_s(c))
+            .collect();
+        let judge = policy::PolicyJudge::new(
+            &scenario,
+            g,
+            &flows,
+            scenario.robot_radius_m() + PASSABLE_STANDOFF_M,
+        );
         let sensors = Sensors::new(&scenario);
         let sample = world.sample(start);
         let outcome = Outcome {
@@ -209,6 +215,10 @@ impl Sim {
             min_standoff_m: f64::INFINITY,
             wall_strikes: 0,
             wall_contact_steps: 0,
+            touch_steps: 0,
+            skin_overpress_events: 0,
+            max_skin_penetration_m: 0.0,
+            junction_calls: Vec::new(),
             distance_travelled_m: 0.0,
             time_held_s: 0.0,
             elapsed_s: 0.0,
@@ -237,10 +247,9 @@ impl Sim {
             head_velocity: [0.0; 3],
             sample,
             struck_last: false,
+            overpressed_last: false,
             outcome,
-            on_path,
-            node_zone_m,
-            wrong_in: None,
+            judge,
             track_standoff: true,
         };
         sim.score_position();
@@ -364,6 +373,8 @@ impl Sim {
     pub fn outcome(&self) -> Outcome {
         let mut o = self.outcome.clone();
         o.elapsed_s = self.time_s;
+        o.wrong_branches = self.judge.wrong();
+        o.junction_calls = self.judge.calls().to_vec();
         o
     }
 
@@ -445,6 +456,7 @@ impl Sim {
             self.time_s,
             &mut self.frame,
         );
+        self.score_skin();
         &self.frame
     }
 
@@ -488,24 +500,36 @@ impl Sim {
                 self.outcome.reached_node = Some(n.id.clone());
             }
         }
-        if let Some(c) = self.sample.conduit.map(|c| c as usize) {
-            if self.on_path[c] {
-                self.wrong_in = None;
-            } else if self.wrong_in != Some(c) {
-                let g = &self.world.geometry.conduits[c];
-                let h = self.world.geometry.best_hit(head);
-                if let Some(h) = h.filter(|h| h.conduit as usize == c) {
-                    let deep_from = h.station_m > self.node_zone_m[g.from];
-                    let deep_to = g.length_m - h.station_m > self.node_zone_m[g.to];
-                    if deep_from && deep_to {
-                        self.outcome.wrong_branches += 1;
-                        self.wrong_in = Some(c);
-                    }
-                }
-            }
+        if let Some(h) = self.world.geometry.best_hit(head) {
+            self.judge
+                .observe(self.time_s, h.conduit as usize, h.station_m);
         }
     }
+
+    /// Count touches and skin pressed past its compliance, from the sensor
+    /// model's true skin state of the frame just produced.
+    fn score_skin(&mut self) {
+        let skin = self.sensors.skin();
+        if skin.touching > 0 {
+            self.outcome.touch_steps += 1;
+        }
+        self.outcome.max_skin_penetration_m = self
+            .outcome
+            .max_skin_penetration_m
+            .max(skin.max_penetration_m);
+        let over =
+            skin.max_penetration_m > self.scenario.motion.skin_compliance_m + OVERPRESS_TOLERANCE_M;
+        if over && !self.overpressed_last {
+            self.outcome.skin_overpress_events += 1;
+        }
+        self.overpressed_last = over;
+    }
 }
+
+/// Penetration beyond the skin compliance that counts as pressing the skin
+/// through, m (0.5 mm: above the rounding of the head clamp, which holds the
+/// head's own skin at the compliance).
+const OVERPRESS_TOLERANCE_M: f64 = 0.0005;
 
 /// The point nearest `target` whose clearance is at least `need` (the
 /// projection onto the allowed core of the nearest tube wide enough), and

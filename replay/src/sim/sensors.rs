@@ -54,9 +54,26 @@ pub struct Sensors {
     travelled_m: f64,
     joint_buf: Vec<JointRecord>,
     port_buf: Vec<f64>,
+    skin: SkinState,
+}
+
+/// The skin's true state in the last frame produced (for scoring: what
+/// the sensors would feel if none were dead and nothing dropped out).
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct SkinState {
+    /// Sensors pressed into a wall with a force at or above the threshold.
+    pub touching: u32,
+    /// Deepest penetration of any sensor point into a wall, m.
+    pub max_penetration_m: f64,
 }
 
 impl Sensors {
+    /// The skin's true state in the last frame produced.
+    #[must_use]
+    pub fn skin(&self) -> SkinState {
+        self.skin
+    }
+
     /// Fresh sensors for a scenario.
     #[must_use]
     pub fn new(sc: &Scenario) -> Self {
@@ -107,6 +124,7 @@ impl Sensors {
             travelled_m: 0.0,
             joint_buf: Vec::new(),
             port_buf: Vec::new(),
+            skin: SkinState::default(),
         }
     }
 
@@ -293,6 +311,7 @@ impl Sensors {
         // ---- contacts
         let cn = sc.sensors.contact;
         frame.contacts.clear();
+        self.skin = SkinState::default();
         let g = &world.geometry;
         for (k, m) in sc.robot.modules.iter().enumerate() {
             // Quick reject: every skin point lies within L/2 + r of the
@@ -311,6 +330,10 @@ impl Sensors {
                 }
                 let pen = -h.clearance_m;
                 let force = cn.stiffness_n_per_m * pen + self.rng_contact.gauss(cn.noise_n);
+                self.skin.max_penetration_m = self.skin.max_penetration_m.max(pen);
+                if force >= cn.threshold_n {
+                    self.skin.touching += 1;
+                }
                 let dead = sc.faults.iter().any(|f| {
                     f.active(t) && matches!(f.kind, FaultKind::ContactDead { module, sensor } if module == k && sensor == si)
                 });

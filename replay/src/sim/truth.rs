@@ -279,8 +279,9 @@ pub struct Outcome {
     pub reached_at_s: Option<f64>,
     /// Which source, by id.
     pub reached_node: Option<String>,
-    /// Entries into conduits off the true path (counted once per entry, past
-    /// the junction zone).
+    /// Wrong branch choices by the policy-true judge
+    /// ([`super::policy`]): entries into a branch other than the passable
+    /// one with the most flow toward the junction.
     pub wrong_branches: u32,
     /// Smallest distance from the head's skin to the wall (nearest wall
     /// sample to the head front-face centre, less the head radius), m.
@@ -290,6 +291,21 @@ pub struct Outcome {
     pub wall_strikes: u32,
     /// Steps spent pressed against a wall.
     pub wall_contact_steps: u64,
+    /// Steps at which some skin sensor touched a wall, by the sensor
+    /// model's truth (before dead sensors, thresholds' noise and dropouts):
+    /// touching is fine.
+    #[serde(default)]
+    pub touch_steps: u64,
+    /// Times the skin was pressed past its compliance somewhere along the
+    /// body (onsets): strikes, with `wall_strikes`.
+    #[serde(default)]
+    pub skin_overpress_events: u32,
+    /// Deepest skin penetration at any sensor, m.
+    #[serde(default)]
+    pub max_skin_penetration_m: f64,
+    /// Every judged branch choice, in time order.
+    #[serde(default)]
+    pub junction_calls: Vec<super::policy::JunctionCall>,
     /// Distance travelled by the head, m.
     pub distance_travelled_m: f64,
     /// Time the command asked for zero speed, s.
