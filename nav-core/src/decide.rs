@@ -1339,7 +1339,7 @@ fn steer(
     }
     match health.mode {
         OperatingMode::FlowOnly => cap(creep, SpeedLimit::Mode, &mut v, &mut limit),
-        OperatingMode::FlowDegraded | OperatingMode::FlowWeak | OperatingMode::TactileOnly => {
+        OperatingMode::FlowDegraded | OperatingMode::TactileOnly => {
             cap(
                 cfg.junction_speed_m_per_s,
                 SpeedLimit::Mode,
@@ -1347,7 +1347,10 @@ fn steer(
                 &mut limit,
             );
         }
-        OperatingMode::Nominal | OperatingMode::Hold => {}
+        // Weak flow: the dwell while it integrates is the navigator's
+        // (`navigator::weak_flow_conduct`); a resolved window is followed
+        // at the usual caps (the head's motion is part of its model).
+        OperatingMode::Nominal | OperatingMode::FlowWeak | OperatingMode::Hold => {}
     }
     let mut mode = health.mode;
     if base_limit == SpeedLimit::Stopped {

@@ -140,8 +140,8 @@ pub struct FlowWindowConfig {
     /// A flow whose dynamic pressure is bounded (estimate plus `resolve_z`
     /// sigma) below this is no usable flow, Pa (>= 0).
     pub still_q_pa: f64,
-    /// Integrating longer than this without resolving counts as no usable
-    /// flow, s (> 0).
+    /// Integrating longer than this without resolving ends the dwell
+    /// ([`WindowStatus::DwellExpired`]), s (> 0).
     pub max_dwell_s: f64,
     /// Pose gaps longer than this restart the head-velocity estimate, s.
     pub max_pose_gap_s: f64,
@@ -153,7 +153,7 @@ impl Default for FlowWindowConfig {
     /// 0.5 rad turn, a quarter after a change in the flow (chi-square per
     /// degree of freedom above 3 over 0.5 s), resolved at 0.3 rad, three
     /// sigma and a one-in-a-million false alarm, no usable flow below
-    /// 0.01 Pa (0.13 m/s in air) or after 20 s without resolving.
+    /// 0.01 Pa (0.13 m/s in air), a dwell of at most 20 s.
     fn default() -> Self {
         Self {
             memory_s: 8.0,
@@ -258,10 +258,13 @@ pub enum WindowStatus {
     Integrating,
     /// Direction and dynamic pressure resolved.
     Resolved,
-    /// The evidence bounds the flow below [`FlowWindowConfig::still_q_pa`],
-    /// or integrating for [`FlowWindowConfig::max_dwell_s`] did not
-    /// resolve it: no flow worth following here.
+    /// The evidence bounds the flow below [`FlowWindowConfig::still_q_pa`]:
+    /// no flow worth following here (still air).
     NoUsableFlow,
+    /// Integrating for [`FlowWindowConfig::max_dwell_s`] did not resolve
+    /// the flow, nor bound it below the floor: dwelling longer is not
+    /// paying (the window keeps integrating).
+    DwellExpired,
 }
 
 /// The windowed estimate.
@@ -683,6 +686,9 @@ impl<const P: usize> FlowWindow<P> {
         // The sense along the axis: the last estimate's (the sense test
         // ran against it), else windward.
         let axis = [e1.x, e1.y, e1.z];
+        // An axis more than 60 degrees from the last is a new flow: the
+        // old sense and its evidence say nothing about it.
+        let previous = previous.filter(|d| libm::fabs(dot(*d, axis)) >= 0.5);
         let mut sign = match previous {
             Some(d) if dot(d, axis) != 0.0 => {
                 if dot(d, axis) > 0.0 {
@@ -730,8 +736,10 @@ impl<const P: usize> FlowWindow<P> {
             let bounded = est.dynamic_pressure_sigma_pa > 0.0
                 && est.dynamic_pressure_pa + self.cfg.resolve_z * est.dynamic_pressure_sigma_pa
                     < self.cfg.still_q_pa;
-            if bounded || time_s - since >= self.cfg.max_dwell_s {
+            if bounded {
                 est.status = WindowStatus::NoUsableFlow;
+            } else if time_s - since >= self.cfg.max_dwell_s {
+                est.status = WindowStatus::DwellExpired;
             }
         }
         self.est = est;

@@ -569,15 +569,17 @@ fn window_ok(w: &WindowEstimate) -> bool {
 }
 
 /// In weak flow: follow the windowed estimate under its own reason, or,
-/// with no direction resolved yet, stop and integrate instead of
-/// wandering by feel.
-fn weak_flow_conduct(d: &mut Decision) {
+/// with no direction resolved yet and the window still integrating
+/// (`dwell`), stop and integrate instead of wandering by feel. After the
+/// longest dwell the robot moves on by feel (the window keeps
+/// integrating as it goes).
+fn weak_flow_conduct(d: &mut Decision, dwell: bool) {
     if d.mode != OperatingMode::FlowWeak {
         return;
     }
     match d.record.reason {
         ReasonCode::FollowUpstream => d.record.reason = ReasonCode::FollowWeakFlow,
-        ReasonCode::FollowByFeel => {
+        ReasonCode::FollowByFeel if dwell => {
             d.record.reason = ReasonCode::DwellWeakFlow;
             d.record.speed_limit = SpeedLimit::Stopped;
             d.speed_m_per_s = 0.0;
@@ -831,14 +833,20 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
     /// the caller found this frame's flow below what one frame resolves
     /// (the probe solver's low-flow guard withheld the direction, or the
     /// dynamic pressure is below `decide.min_dynamic_pressure_pa`);
-    /// `None` otherwise, which is [`Self::step`]. With a window the flow
-    /// channel is *weak* rather than failed: a resolved window leads the
-    /// fused flow (the robot follows it upstream slowly), an unresolved one
-    /// stops the robot where it is while it integrates, and only a window
-    /// that bounds the flow below anything worth following (or has
-    /// integrated for its longest dwell without resolving) starts the
-    /// lost-flow clock. [`ReasonCode::FollowWeakFlow`] and
-    /// [`ReasonCode::DwellWeakFlow`] say which in the record.
+    /// `None` otherwise, which is [`Self::step`].
+    ///
+    /// When the frame's own direction was withheld, the flow channel is
+    /// *weak* rather than failed and the window leads: a resolved window
+    /// is the fused flow (the robot follows it upstream slowly,
+    /// [`ReasonCode::FollowWeakFlow`]); one still integrating stops the
+    /// robot where it is ([`ReasonCode::DwellWeakFlow`]); after its
+    /// longest dwell the robot moves on by feel while it keeps
+    /// integrating. When the frame's direction is valid (only its dynamic
+    /// pressure is below the threshold) the frame is fused as usual and
+    /// the window only judges whether the flow is lost. Either way the
+    /// lost-flow clock runs only while no window has resolved the flow,
+    /// and at once when the window bounds it below anything worth
+    /// following (still air).
     pub fn step_with_window(
         &mut self,
         obs: &Observation,
@@ -891,7 +899,11 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
 
         // Flow.
         let flow_dir = obs.flow.as_ref().and_then(flow_dir_ok);
-        let weak = window.filter(|w| obs.flow.is_some() && window_ok(w));
+        let window = window.filter(|w| obs.flow.is_some() && window_ok(w));
+        // The window leads only when the frame's own direction is
+        // withheld; a valid frame below the lost-flow threshold is fused as
+        // ever, with the window judging whether the flow is lost.
+        let weak = window.filter(|_| flow_dir.is_none());
         if obs.flow.is_some_and(|f| f.velocity_dir_map.is_some()) && flow_dir.is_none() {
             disp = FrameDisposition::PartlyRejected;
         }
@@ -931,6 +943,13 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             self.filter.follow_window(w, t);
         } else if let (Some(o), Some(d)) = (obs.flow.as_ref(), flow_dir) {
             self.filter.update(o, d, t, &self.cfg);
+            match window.map(|w| w.status) {
+                Some(WindowStatus::Resolved) => self.filter.weak_since_s = None,
+                Some(WindowStatus::NoUsableFlow) if self.filter.weak_since_s.is_none() => {
+                    self.filter.weak_since_s = Some(t);
+                }
+                _ => {}
+            }
             if let (Some(pos), Some(v)) = (position, self.filter.est.velocity_dir_map) {
                 let q = self.gas_dynamic_pressure_pa(o, v);
                 self.ridge.add(pos, q, v, &self.cfg.ridge);
@@ -994,7 +1013,8 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             frame: disp,
         };
         let mut d: Decision = decide(&self.map, &view, &perception, &self.state, &dcfg);
-        weak_flow_conduct(&mut d);
+        let dwell = weak.is_some_and(|w| w.status == WindowStatus::Integrating);
+        weak_flow_conduct(&mut d, dwell);
         self.apply(&d);
         let mut heading = d.heading_map;
         let mut speed = d.speed_m_per_s;

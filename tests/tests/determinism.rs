@@ -13,7 +13,7 @@ use std::process::Command;
 /// `libm_digest()` as committed.
 const LIBM_DIGEST: u64 = 0x9a68_5bd4_cbd2_b230;
 /// `core_workload_digest()` as committed.
-const CORE_DIGEST: u64 = 0x8ef3_15a6_5e34_e61d;
+const CORE_DIGEST: u64 = 0x92b5_4f30_0651_5620;
 
 #[test]
 fn twice_in_process() {

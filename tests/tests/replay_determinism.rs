@@ -17,7 +17,7 @@ use replay::run::{LiveOptions, build_sim, campaign_job, header_for, run_live, ru
 
 /// Trace digest of `replay run demo:wrens-slot --seed 11 --max-time 3`, as
 /// printed by the release binary (301 steps).
-const WRENS_11_3S_DIGEST: &str = "28f9659527774ace";
+const WRENS_11_3S_DIGEST: &str = "a451a8ff4fac930c";
 
 fn opts(max_time_s: f64) -> LiveOptions {
     LiveOptions {
