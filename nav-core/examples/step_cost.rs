@@ -14,9 +14,9 @@
 //! heap counter covers every step.
 //!
 //! Capacities: `CostFrameNavigator` = `FrameNavigator<7, 7, 32, 8, 32,
-//! 116, 128, 256, 8>` (116 tactile points: the ridge seeker and the
+//! 115, 128, 256, 8>` (115 tactile points: the ridge seeker and the
 //! nearest-wall candidates took the room of four, the windowed flow
-//! estimate of eight more); with the standard 256 tactile
+//! estimate of nine more); with the standard 256 tactile
 //! points and 512 wall
 //! points the state is about 84 KB, over the 64 KiB budget.
 //!
@@ -85,7 +85,7 @@ unsafe impl GlobalAlloc for Counting {
 static GLOBAL: Counting = Counting;
 
 /// Tactile ring of the measured navigator (must match `CostFrameNavigator`).
-const TW: usize = 116;
+const TW: usize = 115;
 
 type Frame = SensorFrame<7, 7, 32>;
 
