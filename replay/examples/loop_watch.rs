@@ -11,7 +11,7 @@
 //! - `t0 t1`: also print every step between these times, with the true
 //!   skin standoff (a nearest-wall query, slower).
 //!
-//! Each line: time, true head position, true conduit index, strikes so far,
+//! Each line: time, true head position, true conduit index, strikes so far (head stopped, or skin pressed past its compliance),
 //! minimum true standoff so far, then the decision (reason, phase, speed,
 //! channel states, navigator standoff and section radius, contacts this
 //! frame, heading, ridge gradient, speed limit). The last line is the
@@ -41,7 +41,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         let cmd = nav.step(&frame)?;
         let o = sim.outcome();
         let t = sim.true_state();
-        let struck = o.wall_strikes != strikes;
+        let struck = o.wall_strikes + o.skin_overpress_events != strikes;
         let window = sim.time_s() >= t0 && sim.time_s() <= t1;
         if step.is_multiple_of(every) || struck || window {
             let p = t.head_position_m;
@@ -57,7 +57,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                 p[1],
                 p[2],
                 t.conduit,
-                o.wall_strikes,
+                o.wall_strikes + o.skin_overpress_events,
                 o.min_standoff_m,
                 r.reason,
                 r.phase,
@@ -73,7 +73,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                 r.ridge_gradient_per_m.map(round),
                 r.speed_limit
             );
-            strikes = o.wall_strikes;
+            strikes = o.wall_strikes + o.skin_overpress_events;
         }
         if o.reached_source {
             println!("reached the source at {:.2} s", sim.time_s());

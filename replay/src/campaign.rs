@@ -66,6 +66,9 @@ pub struct SeedResult {
     /// The world's drawn parameters (generated worlds), `key=value ...`.
     #[serde(default)]
     pub parameters: String,
+    /// The commands that rebuild and rerun this job by itself.
+    #[serde(default)]
+    pub rerun: String,
 }
 
 fn yes() -> bool {

@@ -8,6 +8,7 @@ pub mod import;
 pub mod log;
 pub mod plot;
 pub mod record;
+pub mod report;
 pub mod run;
 pub mod scorecard;
 pub mod sim;

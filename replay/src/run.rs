@@ -824,6 +824,12 @@ pub fn campaign_job(
     job: &crate::campaign::Job,
     max_time_s: Option<f64>,
 ) -> crate::campaign::SeedResult {
+    let rerun = if job.scenario.starts_with("world:") {
+        crate::scorecard::rerun_commands(&job.scenario, job.seed, max_time_s)
+    } else {
+        let t = max_time_s.map_or(String::new(), |t| format!(" --max-time {t}"));
+        format!("replay run {} --seed {}{t}", job.scenario, job.seed)
+    };
     let fail = |why: String| crate::campaign::SeedResult {
         job: job.index,
         scenario: job.scenario.clone(),
@@ -831,6 +837,7 @@ pub fn campaign_job(
         min_standoff_m: f64::NAN,
         failure: Some(why),
         expect_reach: true,
+        rerun: rerun.clone(),
         ..crate::campaign::SeedResult::default()
     };
     let built = if let Some(spec) = job.scenario.strip_prefix("world:") {
@@ -886,6 +893,7 @@ pub fn campaign_job(
                 path_efficiency: efficiency,
                 expect_reach: t.true_path_passable,
                 parameters,
+                rerun,
             }
         }
         Err(e) => fail(e.to_string()),

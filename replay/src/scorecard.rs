@@ -223,3 +223,28 @@ pub fn rerun_commands(scenario: &str, seed: u64, max_time_s: Option<f64>) -> Str
         file.trim_end_matches(".toml")
     )
 }
+
+/// The whole report: the table, one machine-readable line per family, and
+/// the failing worlds with the commands that regenerate and rerun each.
+#[must_use]
+pub fn report(plan: &CampaignPlan, results: &[SeedResult], max_time_s: Option<f64>) -> String {
+    use std::fmt::Write as _;
+    let rows = rows(plan, results);
+    let mut o = format_table(&rows);
+    for r in &rows {
+        let _ = writeln!(o, "{}", machine_line(r));
+    }
+    let failing: usize = rows.iter().map(|r| r.failing.len()).sum();
+    if failing > 0 {
+        let _ = writeln!(
+            o,
+            "failing worlds ({failing}), each regenerated and rerun by:"
+        );
+        for (r, s) in rows.iter().zip(&plan.scenarios) {
+            for (seed, why) in &r.failing {
+                let _ = writeln!(o, "  {}    # {why}", rerun_commands(s, *seed, max_time_s));
+            }
+        }
+    }
+    o
+}
