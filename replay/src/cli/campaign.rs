@@ -60,7 +60,11 @@ pub enum ShardArg {
     FromEnv,
 }
 
-fn shard_arg(text: &str) -> Result<ShardArg, String> {
+/// Parse `--shard`: `i/n` or `env`.
+///
+/// # Errors
+/// A message saying what is wrong with the text.
+pub fn shard_arg(text: &str) -> Result<ShardArg, String> {
     if text == "env" {
         Ok(ShardArg::FromEnv)
     } else {
@@ -77,50 +81,15 @@ pub fn exec(a: Args, out: &mut Out) -> Result<ExitCode, String> {
     for s in &a.scenarios {
         replay::run::build_sim(s, None).map_err(|e| format!("scenario {s}: {e}"))?;
     }
-    let shard = match a.shard {
-        None => Shard::ALL,
-        Some(ShardArg::Fixed(s)) => s,
-        Some(ShardArg::FromEnv) => {
-            let (s, from) = Shard::from_env(|k| std::env::var(k).ok())
-                .map_err(|e| format!("--shard env: {e}"))?;
-            out.note(
-                "campaign",
-                format_args!("shard {}/{} from the {from}", s.index, s.count),
-            );
-            s
-        }
-    };
+    let shard = resolve_shard(a.shard, "campaign", out)?;
     let plan = CampaignPlan {
         scenarios: a.scenarios,
         first_seed: a.first_seed,
         seeds: a.seeds,
     };
-    let jobs = plan.jobs(shard).len() as u64;
-    let bar = if a.quiet {
-        indicatif::ProgressBar::hidden()
-    } else {
-        indicatif::ProgressBar::new(jobs)
-    };
-    bar.set_style(
-        indicatif::ProgressStyle::with_template(
-            "{bar:40} {pos}/{len} runs  {elapsed} elapsed, {eta} left",
-        )
-        .map_err(|e| e.to_string())?,
-    );
-    let started = std::time::Instant::now();
     let max_time = a.max_time;
-    let results = run(
-        &plan,
-        shard,
-        a.threads,
-        |job| replay::run::campaign_job(job, max_time),
-        || bar.inc(1),
-    )?;
-    bar.finish_and_clear();
-    let mut w = create(&a.out)?;
-    write_results(&mut w, &plan, shard, &results).map_err(|e| e.to_string())?;
-    finish(w, &a.out)?;
-    let wall = started.elapsed().as_secs_f64();
+    let (results, wall) =
+        run_and_write(&plan, shard, a.threads, max_time, a.quiet, "runs", &a.out)?;
     let summaries = summarise(&plan, &results);
     if shard == Shard::ALL {
         out.text(format_table(&summaries));
@@ -132,6 +101,69 @@ pub fn exec(a: Args, out: &mut Out) -> Result<ExitCode, String> {
         a.out.display()
     ));
     Ok(success_verdict(&summaries, a.min_success, out, "campaign"))
+}
+
+/// The shard a `--shard` argument names; `env` reads the scheduler's
+/// variables and says where it found them.
+///
+/// # Errors
+/// `--shard env` without a scheduler's variables, or with bad ones.
+pub fn resolve_shard(arg: Option<ShardArg>, command: &str, out: &mut Out) -> Result<Shard, String> {
+    Ok(match arg {
+        None => Shard::ALL,
+        Some(ShardArg::Fixed(s)) => s,
+        Some(ShardArg::FromEnv) => {
+            let (s, from) = Shard::from_env(|k| std::env::var(k).ok())
+                .map_err(|e| format!("--shard env: {e}"))?;
+            out.note(
+                command,
+                format_args!("shard {}/{} from the {from}", s.index, s.count),
+            );
+            s
+        }
+    })
+}
+
+/// Run the jobs of `shard` in parallel behind a progress bar (none when
+/// `quiet`; `noun` names the jobs on it) and write the results file; the
+/// results in job order and the wall time, s.
+///
+/// # Errors
+/// A thread pool or results file that cannot be made.
+pub fn run_and_write(
+    plan: &CampaignPlan,
+    shard: Shard,
+    threads: usize,
+    max_time_s: Option<f64>,
+    quiet: bool,
+    noun: &str,
+    path: &std::path::Path,
+) -> Result<(Vec<replay::campaign::SeedResult>, f64), String> {
+    let jobs = plan.jobs(shard).len() as u64;
+    let bar = if quiet {
+        indicatif::ProgressBar::hidden()
+    } else {
+        indicatif::ProgressBar::new(jobs)
+    };
+    bar.set_style(
+        indicatif::ProgressStyle::with_template(&format!(
+            "{{bar:40}} {{pos}}/{{len}} {noun}  {{elapsed}} elapsed, {{eta}} left"
+        ))
+        .map_err(|e| e.to_string())?,
+    );
+    let started = std::time::Instant::now();
+    let results = run(
+        plan,
+        shard,
+        threads,
+        |job| replay::run::campaign_job(job, max_time_s),
+        || bar.inc(1),
+    )?;
+    bar.finish_and_clear();
+    let mut w = create(path)?;
+    write_results(&mut w, plan, shard, &results).map_err(|e| e.to_string())?;
+    finish(w, path)?;
+    Ok((results, started.elapsed().as_secs_f64()))
 }
 
 /// Exit 1, saying which scenarios, when a success rate is below

@@ -1,8 +1,9 @@
 //! `replay scorecard`: generated worlds of every family through the
 //! navigator, one row per family (a campaign over `world:` scenarios).
 
-use super::out::{Out, create, finish};
-use replay::campaign::{CampaignPlan, Shard, run, write_results};
+use super::campaign::{ShardArg, resolve_shard, run_and_write, shard_arg};
+use super::out::Out;
+use replay::campaign::{CampaignPlan, Shard};
 use replay::sim::worlds::{Family, WorldSpec};
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -24,9 +25,10 @@ pub struct Args {
     /// Worker threads (0: one per core).
     #[arg(long, default_value_t = 0)]
     pub threads: usize,
-    /// Run only shard i of n (0-based), e.g. `--shard 3/16`.
-    #[arg(long, value_name = "I/N", value_parser = Shard::parse)]
-    pub shard: Option<Shard>,
+    /// Run only shard i of n (0-based), e.g. `--shard 3/16`; or `--shard
+    /// env`: i and n from a Slurm job array or a Kubernetes indexed job.
+    #[arg(long, value_name = "I/N|env", value_parser = shard_arg)]
+    pub shard: Option<ShardArg>,
     /// Results file (JSON Lines; `merge` combines shards).
     #[arg(
         short = 'o',
@@ -63,44 +65,21 @@ pub fn exec(a: Args, out: &mut Out) -> Result<ExitCode, String> {
         let spec = WorldSpec::parse(n).map_err(|e| e.to_string())?;
         scenarios.push(format!("world:{}", spec.text()));
     }
-    let shard = a.shard.unwrap_or(Shard::ALL);
+    let shard = resolve_shard(a.shard, "scorecard", out)?;
     let plan = CampaignPlan {
         scenarios,
         first_seed: a.first_seed,
         seeds: a.worlds,
     };
-    let jobs = plan.jobs(shard).len() as u64;
-    let bar = if a.quiet {
-        indicatif::ProgressBar::hidden()
-    } else {
-        indicatif::ProgressBar::new(jobs)
-    };
-    bar.set_style(
-        indicatif::ProgressStyle::with_template(
-            "{bar:40} {pos}/{len} worlds  {elapsed} elapsed, {eta} left",
-        )
-        .map_err(|e| e.to_string())?,
-    );
-    let started = std::time::Instant::now();
     let max_time = a.max_time;
-    let results = run(
-        &plan,
-        shard,
-        a.threads,
-        |job| replay::run::campaign_job(job, max_time),
-        || bar.inc(1),
-    )?;
-    bar.finish_and_clear();
-    let mut w = create(&a.out)?;
-    write_results(&mut w, &plan, shard, &results).map_err(|e| e.to_string())?;
-    finish(w, &a.out)?;
+    let (results, wall) =
+        run_and_write(&plan, shard, a.threads, max_time, a.quiet, "worlds", &a.out)?;
     if shard == Shard::ALL {
         out.text(replay::scorecard::report(&plan, &results, max_time));
     }
     out.line(format_args!(
-        "{} worlds in {:.1} s wall time; results in {}",
+        "{} worlds in {wall:.1} s wall time; results in {}",
         results.len(),
-        started.elapsed().as_secs_f64(),
         a.out.display()
     ));
     Ok(ExitCode::SUCCESS)

@@ -689,6 +689,56 @@ fn pinch(d: &mut Draw) -> Result<Draft, String> {
     Ok(jet_layout(d, c, profile, len, flow, ratio, what))
 }
 
+/// A blind side branch off an interior vertex of a single bore.
+struct SpurPlan {
+    /// Turn off the bore's direction, rad (either side, drawn).
+    turn_rad: (f64, f64),
+    /// Radius drawn (capped at the bore's), or the bore's own.
+    radius_m: Option<(f64, f64)>,
+    /// Length drawn, m.
+    length_m: (f64, f64),
+}
+
+/// One bore of radius `r` along `line` from `ends[0]` (the portal) to
+/// `ends[1]` (the source), named `name`, or split at a drawn interior
+/// vertex into `<name>-lower` and `<name>-upper` with a blind spur
+/// `blind-<name>` when `spur` is given and the line has one.
+fn single_bore(
+    d: &mut Draw,
+    b: &mut Builder,
+    name: &str,
+    ends: [usize; 2],
+    line: &[V3],
+    r: f64,
+    spur: Option<&SpurPlan>,
+) {
+    let Some(sp) = spur.filter(|_| line.len() >= 4) else {
+        b.conduit(name, ends[0], ends[1], line, DraftRadius::Constant(r));
+        return;
+    };
+    let k = 2 + d.index(line.len() - 3);
+    let side = b.node("side-junction", line[k], DraftKind::Junction);
+    let lower = format!("{name}-lower");
+    let upper = format!("{name}-upper");
+    b.conduit(&lower, ends[0], side, &line[..=k], DraftRadius::Constant(r));
+    b.conduit(&upper, side, ends[1], &line[k..], DraftRadius::Constant(r));
+    let (yaw, _) = shape::angles(end_dir(&line[..=k]));
+    let off = if d.coin() { 1.0 } else { -1.0 } * d.uniform(sp.turn_rad.0, sp.turn_rad.1);
+    let blind = b.node("blind-end", [0.0; 3], DraftKind::Junction);
+    let spur_r = sp
+        .radius_m
+        .map_or(r, |(lo, hi)| mm(d.uniform(lo, hi).min(r)));
+    let len = d.uniform(sp.length_m.0, sp.length_m.1);
+    let spur_line = shape::bent_line(line[k], yaw + off, 0.0, &[len], &[], 0.2);
+    b.conduit(
+        &format!("blind-{name}"),
+        side,
+        blind,
+        &spur_line,
+        DraftRadius::Constant(spur_r),
+    );
+}
+
 fn slow(d: &mut Draw) -> Result<Draft, String> {
     let c = common(d, (0.01, 0.05), AIR_K);
     let r_body = c.robot.module_radius_m;
@@ -707,39 +757,20 @@ fn slow(d: &mut Draw) -> Result<Draft, String> {
     let mut b = Builder::new();
     let portal = b.node("portal", [0.0; 3], DraftKind::Exit(AMBIENT_PA));
     let source = b.node("source", [0.0; 3], DraftKind::MassFlow(flow));
-    if spur && line.len() >= 4 {
-        // A blind side drift off an interior vertex.
-        let k = 2 + d.index(line.len() - 3);
-        let side = b.node("side-junction", line[k], DraftKind::Junction);
-        b.conduit(
-            "drift-lower",
-            portal,
-            side,
-            &line[..=k],
-            DraftRadius::Constant(r),
-        );
-        b.conduit(
-            "drift-upper",
-            side,
-            source,
-            &line[k..],
-            DraftRadius::Constant(r),
-        );
-        let (yaw, _) = shape::angles(end_dir(&line[..=k]));
-        let off = if d.coin() { 1.0 } else { -1.0 } * d.uniform(0.7, 1.2);
-        let blind = b.node("blind-end", [0.0; 3], DraftKind::Junction);
-        let spur_r = mm(d.uniform(0.3, 0.6).min(r));
-        let spur_line = shape::bent_line(line[k], yaw + off, 0.0, &[d.uniform(4.0, 8.0)], &[], 0.2);
-        b.conduit(
-            "blind-drift",
-            side,
-            blind,
-            &spur_line,
-            DraftRadius::Constant(spur_r),
-        );
-    } else {
-        b.conduit("drift", portal, source, &line, DraftRadius::Constant(r));
-    }
+    let plan = SpurPlan {
+        turn_rad: (0.7, 1.2),
+        radius_m: Some((0.3, 0.6)),
+        length_m: (4.0, 8.0),
+    };
+    single_bore(
+        d,
+        &mut b,
+        "drift",
+        [portal, source],
+        &line,
+        r,
+        spur.then_some(&plan),
+    );
     let start = start_on(&line);
     let what = format!("{length:.0} m drift, radius {r:.2} m, air at {v:.2} m/s");
     Ok(b.finish(c, what, length, start))
@@ -766,37 +797,20 @@ fn tight(d: &mut Draw) -> Result<Draft, String> {
     let mut b = Builder::new();
     let portal = b.node("portal", [0.0; 3], DraftKind::Exit(AMBIENT_PA));
     let source = b.node("source", [0.0; 3], DraftKind::MassFlow(flow));
-    if spur && line.len() >= 4 {
-        let j = 2 + d.index(line.len() - 3);
-        let side = b.node("side-junction", line[j], DraftKind::Junction);
-        b.conduit(
-            "bore-lower",
-            portal,
-            side,
-            &line[..=j],
-            DraftRadius::Constant(r),
-        );
-        b.conduit(
-            "bore-upper",
-            side,
-            source,
-            &line[j..],
-            DraftRadius::Constant(r),
-        );
-        let (yaw, _) = shape::angles(end_dir(&line[..=j]));
-        let off = if d.coin() { 1.0 } else { -1.0 } * d.uniform(0.8, 1.3);
-        let blind = b.node("blind-end", [0.0; 3], DraftKind::Junction);
-        let spur_line = shape::bent_line(line[j], yaw + off, 0.0, &[d.uniform(2.0, 4.0)], &[], 0.2);
-        b.conduit(
-            "blind-bore",
-            side,
-            blind,
-            &spur_line,
-            DraftRadius::Constant(r),
-        );
-    } else {
-        b.conduit("bore", portal, source, &line, DraftRadius::Constant(r));
-    }
+    let plan = SpurPlan {
+        turn_rad: (0.8, 1.3),
+        radius_m: None,
+        length_m: (2.0, 4.0),
+    };
+    single_bore(
+        d,
+        &mut b,
+        "bore",
+        [portal, source],
+        &line,
+        r,
+        spur.then_some(&plan),
+    );
     let start = start_on(&line);
     let what = format!(
         "{length:.0} m bore {:.0} mm across ({k:.2} body diameters), air at {v:.2} m/s",
