@@ -231,6 +231,15 @@ pub(crate) fn onboard_error_code(e: &OnboardError) -> (i32, Msg<UPC_FIELD_LEN>) 
         ),
         OnboardError::Nav(n) => (UPC_ERR_NAV, Msg::of(format_args!("{}", n.field.name()))),
         OnboardError::Setting { field, .. } => (UPC_ERR_SETTING, Msg::of(format_args!("{field}"))),
+        OnboardError::FlowWindow(w) => (
+            UPC_ERR_SETTING,
+            match w {
+                nav_core::flow_window::FlowWindowError::Config { field, .. } => {
+                    Msg::of(format_args!("flow_window.{field}"))
+                }
+                _ => Msg::of(format_args!("flow_window")),
+            },
+        ),
     }
 }
 

@@ -14,9 +14,10 @@
 //! heap counter covers every step.
 //!
 //! Capacities: `CostFrameNavigator` = `FrameNavigator<7, 7, 32, 8, 32,
-//! 120, 128, 256, 8>` (120 tactile points: the ridge seeker and the nearest-
+//! 111, 128, 256, 8>` (111 tactile points: the ridge seeker and the nearest-
 //! wall candidates took the room of four, the stamp judge and the pose
-//! check of `nav_core::trust` four more), held to the 64 KiB onboard
+//! check of `nav_core::trust` four more, the windowed flow estimate of
+//! `nav_core::flow_window` nine more), held to the 64 KiB onboard
 //! budget. The standard configuration that `replay` and the demos run
 //! (`StandardFrameNavigator` = `FrameNavigator<7, 7, 48, 8, 48, 256, 128,
 //! 512, 8>`) is measured too, on the same traverse, on a line of its own
@@ -90,7 +91,7 @@ unsafe impl GlobalAlloc for Counting {
 static GLOBAL: Counting = Counting;
 
 /// Tactile ring of the measured navigator (must match `CostFrameNavigator`).
-const TW: usize = 120;
+const TW: usize = 111;
 
 type Frame = SensorFrame<7, 7, 32>;
 

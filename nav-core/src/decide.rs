@@ -390,6 +390,12 @@ pub enum ReasonCode {
     FollowByFeel,
     /// Tactile failed: creeping upstream on flow alone.
     FollowFlowOnly,
+    /// Flow too weak for one frame: following the windowed estimate
+    /// upstream slowly.
+    FollowWeakFlow,
+    /// Flow too weak for one frame and not yet resolved by the windowed
+    /// estimate: stopped, integrating.
+    DwellWeakFlow,
     /// Pointing into a branch to sample its flow.
     SampleBranch,
     /// Entering the chosen branch.
@@ -1359,7 +1365,10 @@ fn steer(
                 &mut limit,
             );
         }
-        OperatingMode::Nominal | OperatingMode::Hold => {}
+        // Weak flow: the dwell while it integrates is the navigator's
+        // (`navigator::weak_flow_conduct`); a resolved window is followed
+        // at the usual caps (the head's motion is part of its model).
+        OperatingMode::Nominal | OperatingMode::FlowWeak | OperatingMode::Hold => {}
     }
     let mut mode = health.mode;
     if base_limit == SpeedLimit::Stopped {

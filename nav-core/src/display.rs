@@ -5,6 +5,7 @@
 //! documented where the type is defined.
 
 use crate::body::{BodyConfigError, KinematicsError};
+use crate::flow_window::FlowWindowError;
 use crate::gas::GasError;
 use crate::map::WallIndexError;
 use crate::navigator::{ConfigError as NavConfigError, ConfigField};
@@ -435,6 +436,22 @@ impl Display for NavConfigError {
     }
 }
 
+impl Display for FlowWindowError {
+    fn fmt(&self, f: &mut Formatter<'_>) -> Result {
+        match self {
+            Self::Config { field, value } => write!(f, "{field} = {value}: out of range"),
+            Self::TimeOrder { time_s, last_s } => write!(
+                f,
+                "frame time {time_s} s is not finite or not after the last one ({last_s} s)"
+            ),
+            Self::Pose => write!(f, "pose not finite or its quaternion degenerate"),
+            Self::Density { value } => {
+                write!(f, "gas density {value} kg/m^3 is not finite and positive")
+            }
+        }
+    }
+}
+
 impl Display for OnboardError {
     fn fmt(&self, f: &mut Formatter<'_>) -> Result {
         match self {
@@ -443,6 +460,7 @@ impl Display for OnboardError {
             Self::Tactile(e) => write!(f, "tactile: {e}"),
             Self::Nav(e) => write!(f, "navigator: {e}"),
             Self::Setting { field, value } => write!(f, "{field} = {value}: out of range"),
+            Self::FlowWindow(e) => write!(f, "flow window: {e}"),
         }
     }
 }
@@ -506,5 +524,11 @@ mod tests {
         let e = ProbeError::Layout(LayoutError::NotUnitNormal { port: 3, norm: 2.0 });
         let t = text(&e);
         assert_eq!(s(&t), "probe layout: port 3: normal of length 2, must be 1");
+        let e = OnboardError::FlowWindow(FlowWindowError::Config {
+            field: "half_life_s",
+            value: -2.0,
+        });
+        let t = text(&e);
+        assert_eq!(s(&t), "flow window: half_life_s = -2: out of range");
     }
 }

@@ -15,7 +15,11 @@
 //! - The flow channel is failed when its last valid solution is older than
 //!   `flow_timeout_s`, or fewer than `min_ports_usable` ports are not failed;
 //!   degraded when any port is suspect or failed, or the last solution was
-//!   marked degraded. The tactile channel is failed when its last report is
+//!   marked degraded. It is *weak*, not failed, while the probe reports
+//!   but the flow is below what one frame resolves and the windowed
+//!   estimate ([`crate::flow_window`]) carries the evidence: too little
+//!   evidence yet is a reason to slow down, dwell and integrate, not a
+//!   broken probe (too few usable ports still fails it). The tactile channel is failed when its last report is
 //!   older than `tactile_timeout_s` (a quiet skin, no wall within reach,
 //!   counts as a report: knowing no wall is near is not a fault), or fewer
 //!   than `min_contacts_usable` sensors are not failed; degraded when the
@@ -156,6 +160,12 @@ pub enum ChannelReason {
     EstimateDegraded,
     /// Never had data yet.
     NoDataYet,
+    /// Flow below what one frame resolves; the windowed estimate is still
+    /// integrating (dwell).
+    WeakFlowIntegrating,
+    /// Flow below what one frame resolves; the windowed estimate has
+    /// resolved it (follow slowly).
+    WeakFlowResolved,
 }
 
 /// State of one channel.
@@ -166,6 +176,10 @@ pub enum ChannelState {
     Ok,
     /// Usable with reduced confidence.
     Degraded,
+    /// The probe works but the flow is too weak for one frame: the windowed
+    /// estimate leads (see [`ChannelReason`] for whether it has resolved
+    /// the flow yet).
+    Weak,
     /// Not usable.
     Failed,
 }
@@ -192,6 +206,9 @@ pub enum OperatingMode {
     Nominal,
     /// Flow usable but degraded, tactile usable.
     FlowDegraded,
+    /// Flow too weak for one frame, tactile usable: follow the windowed
+    /// estimate slowly, or dwell while it integrates.
+    FlowWeak,
     /// Flow failed, tactile usable: follow the conduit by feel.
     TactileOnly,
     /// Tactile failed, flow usable: creep upstream without standoff
@@ -207,7 +224,7 @@ impl OperatingMode {
     pub const fn severity(self) -> u8 {
         match self {
             Self::Nominal => 0,
-            Self::FlowDegraded => 1,
+            Self::FlowDegraded | Self::FlowWeak => 1,
             Self::TactileOnly | Self::FlowOnly => 2,
             Self::Hold => 3,
         }
@@ -255,6 +272,9 @@ pub struct HealthReport {
     pub flow_valid: bool,
     /// The flow solution was marked degraded.
     pub flow_degraded: bool,
+    /// The flow was below what one frame resolves and the windowed
+    /// estimate stood in (`flow_valid` then says whether it resolved it).
+    pub flow_weak: bool,
     /// Bit k set: contact sensor k reported suspect.
     pub contact_suspect_mask: u64,
     /// Bit k set: contact sensor k reported failed.
@@ -287,6 +307,10 @@ pub struct HealthState<const P: usize, const C: usize> {
     pub last_transition: Option<ModeTransition>,
     /// Sensors whose condition changed at the last update.
     pub sensor_changes: u16,
+    /// The probe's last report was weak flow ([`HealthReport::flow_weak`]).
+    pub flow_was_weak: bool,
+    /// Time of the last weak-flow report, s.
+    pub flow_weak_last_s: f64,
     cfg: HealthConfig,
 }
 
@@ -341,6 +365,8 @@ impl<const P: usize, const C: usize> HealthState<P, C> {
             candidate_since_s: f64::NEG_INFINITY,
             last_transition: None,
             sensor_changes: 0,
+            flow_was_weak: false,
+            flow_weak_last_s: f64::NEG_INFINITY,
             cfg,
         }
     }
@@ -388,6 +414,10 @@ impl<const P: usize, const C: usize> HealthState<P, C> {
             if r.flow_valid {
                 self.flow.last_good_s = time_s;
             }
+            self.flow_was_weak = r.flow_weak;
+            if r.flow_weak {
+                self.flow_weak_last_s = time_s;
+            }
         }
         if r.tactile_reported {
             for (k, s) in self.contacts.iter_mut().enumerate() {
@@ -407,10 +437,20 @@ impl<const P: usize, const C: usize> HealthState<P, C> {
         let usable = count_not_failed(&self.ports);
         self.flow.usable_sensors = usable;
         let flow_age = time_s - self.flow.last_good_s;
-        let (fs, fr) = if self.flow.last_good_s == f64::NEG_INFINITY {
+        let weak_age = time_s - self.flow_weak_last_s;
+        let weak = self.flow_was_weak && weak_age <= cfg.flow_timeout_s;
+        let (fs, fr) = if self.flow.last_good_s == f64::NEG_INFINITY && !weak {
             (ChannelState::Failed, ChannelReason::NoDataYet)
         } else if usable < cfg.min_ports_usable {
             (ChannelState::Failed, ChannelReason::TooFewSensors)
+        } else if weak {
+            let resolved = flow_age.is_finite() && flow_age <= weak_age;
+            let reason = if resolved {
+                ChannelReason::WeakFlowResolved
+            } else {
+                ChannelReason::WeakFlowIntegrating
+            };
+            (ChannelState::Weak, reason)
         } else if flow_age.is_nan() || flow_age > cfg.flow_timeout_s {
             (ChannelState::Failed, ChannelReason::Stale)
         } else if count_faulty(&self.ports) > 0 {
@@ -480,6 +520,9 @@ pub const fn mode_for(flow: ChannelState, tactile: ChannelState) -> OperatingMod
     match (flow, tactile) {
         (ChannelState::Failed, ChannelState::Failed) => OperatingMode::Hold,
         (ChannelState::Failed, _) => OperatingMode::TactileOnly,
+        // Weak flow without the skin: nothing to creep on safely.
+        (ChannelState::Weak, ChannelState::Failed) => OperatingMode::Hold,
+        (ChannelState::Weak, _) => OperatingMode::FlowWeak,
         (_, ChannelState::Failed) => OperatingMode::FlowOnly,
         (ChannelState::Degraded, _) => OperatingMode::FlowDegraded,
         (ChannelState::Ok, _) => OperatingMode::Nominal,

@@ -33,6 +33,7 @@ use crate::decide::{
     HealthFlags, HealthView, Perception, Phase, ReasonCode, SpeedLimit, WallObservation, decide,
 };
 use crate::digest::Fnv64;
+use crate::flow_window::{WindowEstimate, WindowStatus};
 use crate::frame::HeadPose;
 use crate::health::{HealthConfig, HealthReport, HealthState, OperatingMode};
 use crate::map::{
@@ -556,6 +557,67 @@ impl FlowFilter {
     }
 }
 
+impl FlowFilter {
+    /// Take a windowed estimate as the fused flow (it already holds the
+    /// evidence of many frames: fusing it again each frame would count the
+    /// same frames many times over). An unresolved window leaves no
+    /// direction, so the decision stage does not steer on it.
+    fn follow_window(&mut self, w: &WindowEstimate, t: f64) {
+        let resolved = w.status == WindowStatus::Resolved;
+        self.est = FlowEstimate {
+            velocity_dir_map: if resolved { w.velocity_dir_map } else { None },
+            dir_cov: w.dir_cov_map,
+            dynamic_pressure_pa: w.dynamic_pressure_pa,
+            dynamic_pressure_var_pa2: w.dynamic_pressure_sigma_pa * w.dynamic_pressure_sigma_pa,
+            density_kg_per_m3: w.density_kg_per_m3,
+        };
+        self.last_update_s = t;
+        self.outliers = 0;
+        if w.status == WindowStatus::NoUsableFlow {
+            if self.weak_since_s.is_none() {
+                self.weak_since_s = Some(t);
+            }
+        } else {
+            self.weak_since_s = None;
+        }
+    }
+}
+
+/// A windowed estimate fit to steer on: finite numbers, a unit direction.
+fn window_ok(w: &WindowEstimate) -> bool {
+    let dir_ok = w
+        .velocity_dir_map
+        .is_none_or(|d| finite3(d) && unit(d).is_some());
+    dir_ok
+        && w.dir_cov_map
+            .iter()
+            .all(|r| r.iter().all(|v| v.is_finite()))
+        && w.dynamic_pressure_pa.is_finite()
+        && w.dynamic_pressure_sigma_pa.is_finite()
+        && w.density_kg_per_m3.is_finite()
+        && w.density_kg_per_m3 > 0.0
+}
+
+/// In weak flow: follow the windowed estimate under its own reason, or,
+/// with no direction resolved yet and the window still integrating
+/// (`dwell`), stop and integrate instead of wandering by feel. After the
+/// longest dwell the robot moves on by feel (the window keeps
+/// integrating as it goes).
+fn weak_flow_conduct(d: &mut Decision, dwell: bool) {
+    if d.mode != OperatingMode::FlowWeak {
+        return;
+    }
+    match d.record.reason {
+        ReasonCode::FollowUpstream => d.record.reason = ReasonCode::FollowWeakFlow,
+        ReasonCode::FollowByFeel if dwell => {
+            d.record.reason = ReasonCode::DwellWeakFlow;
+            d.record.speed_limit = SpeedLimit::Stopped;
+            d.speed_m_per_s = 0.0;
+        }
+        _ => {}
+    }
+}
+
 fn to_arr(m: &nalgebra::Matrix3<f64>) -> [[f64; 3]; 3] {
     crate::decide::mat3_to_arr(m)
 }
@@ -845,13 +907,37 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
     /// One step. Never panics; every output number is finite.
     pub fn step(&mut self, obs: &Observation) -> Command {
         let v = self.clock.judge(obs.time_s);
-        self.step_judged(obs, v)
+        self.step_judged(obs, v, None)
     }
 
     /// One step on a frame whose stamp [`Self::judge_time`] has judged
     /// (`verdict` must be that call's answer for `obs.time_s`). The
     /// observation's own `time_s` is not read: the verdict's time is used.
-    pub fn step_judged(&mut self, obs: &Observation, verdict: ClockVerdict) -> Command {
+    ///
+    /// `window`: the windowed flow estimate ([`crate::flow_window`]) when
+    /// the caller found this frame's flow below what one frame resolves
+    /// (the probe solver's low-flow guard withheld the direction, or the
+    /// dynamic pressure is below `decide.min_dynamic_pressure_pa`);
+    /// `None` otherwise, which is what [`Self::step`] passes.
+    ///
+    /// When the frame's own direction was withheld, the flow channel is
+    /// *weak* rather than failed and the window leads: a resolved window
+    /// is the fused flow (the robot follows it upstream slowly,
+    /// [`ReasonCode::FollowWeakFlow`]); one still integrating stops the
+    /// robot where it is ([`ReasonCode::DwellWeakFlow`]); after its
+    /// longest dwell the robot moves on by feel while it keeps
+    /// integrating. When the frame's direction is valid (only its dynamic
+    /// pressure is below the threshold) the frame is fused as usual and
+    /// the window only judges whether the flow is lost. Either way the
+    /// lost-flow clock runs only while no window has resolved the flow,
+    /// and at once when the window bounds it below anything worth
+    /// following (still air).
+    pub fn step_judged(
+        &mut self,
+        obs: &Observation,
+        verdict: ClockVerdict,
+        window: Option<&WindowEstimate>,
+    ) -> Command {
         let t = match verdict {
             ClockVerdict::Hold(d) => return self.hold_untrusted(obs.time_s, d),
             ClockVerdict::Late { repeat_ok, .. } => {
@@ -900,6 +986,11 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
 
         // Flow.
         let flow_dir = obs.flow.as_ref().and_then(flow_dir_ok);
+        let window = window.filter(|w| obs.flow.is_some() && window_ok(w));
+        // The window leads only when the frame's own direction is
+        // withheld; a valid frame below the lost-flow threshold is fused as
+        // ever, with the window judging whether the flow is lost.
+        let weak = window.filter(|_| flow_dir.is_none());
         if obs.flow.is_some_and(|f| f.velocity_dir_map.is_some()) && flow_dir.is_none() {
             disp = FrameDisposition::PartlyRejected;
         }
@@ -919,8 +1010,12 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             port_suspect_mask: obs.flow.map_or(0, |f| f.port_suspect_mask),
             port_failed_mask: obs.flow.map_or(0, |f| f.port_failed_mask),
             probe_reported: obs.flow.is_some(),
-            flow_valid: flow_dir.is_some(),
+            flow_valid: match weak {
+                Some(w) => w.status == WindowStatus::Resolved,
+                None => flow_dir.is_some(),
+            },
             flow_degraded: obs.flow.is_some_and(|f| f.degraded),
+            flow_weak: weak.is_some(),
             contact_suspect_mask: wall.map_or(0, |w| w.contact_suspect_mask),
             contact_failed_mask: wall.map_or(0, |w| w.contact_failed_mask),
             tactile_reported: wall.is_some(),
@@ -931,8 +1026,17 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
 
         // Streamline filter, and the dynamic pressure along the path for
         // the ridge cue (this frame's reading: the fused value lags).
-        if let (Some(o), Some(d)) = (obs.flow.as_ref(), flow_dir) {
+        if let Some(w) = weak {
+            self.filter.follow_window(w, t);
+        } else if let (Some(o), Some(d)) = (obs.flow.as_ref(), flow_dir) {
             self.filter.update(o, d, t, &self.cfg);
+            match window.map(|w| w.status) {
+                Some(WindowStatus::Resolved) => self.filter.weak_since_s = None,
+                Some(WindowStatus::NoUsableFlow) if self.filter.weak_since_s.is_none() => {
+                    self.filter.weak_since_s = Some(t);
+                }
+                _ => {}
+            }
             if let (Some(pos), Some(v)) = (position, self.filter.est.velocity_dir_map) {
                 let q = self.gas_dynamic_pressure_pa(o, v);
                 self.ridge.add(pos, q, v, &self.cfg.ridge);
@@ -995,7 +1099,9 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             ridge,
             frame: disp,
         };
-        let d: Decision = decide(&self.map, &view, &perception, &self.state, &dcfg);
+        let mut d: Decision = decide(&self.map, &view, &perception, &self.state, &dcfg);
+        let dwell = weak.is_some_and(|w| w.status == WindowStatus::Integrating);
+        weak_flow_conduct(&mut d, dwell);
         self.apply(&d);
         let mut heading = d.heading_map;
         let mut speed = d.speed_m_per_s;

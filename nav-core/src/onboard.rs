@@ -13,7 +13,11 @@
 //! 1. **probe**: port pressures → [`crate::probe::FlowSolution`] (probe
 //!    frame) → rotated into the map frame with the head pose; ports the
 //!    health stage has failed are left out of the fit, with a fit on every
-//!    port each [`PORT_RECHECK_STEPS`] steps to let them back;
+//!    port each [`PORT_RECHECK_STEPS`] steps to let them back; the same
+//!    pressures go into the windowed estimate ([`crate::flow_window`]),
+//!    which stands in for the frame's flow when it is too weak for one
+//!    frame (the solver's low-flow guard withheld the direction, or the
+//!    dynamic pressure is below `nav.decide.min_dynamic_pressure_pa`);
 //! 2. **tactile**: contacts → wall points ([`crate::tactile::TactileMap`]),
 //!    and on a fixed cadence the cross-section at the head, the throat
 //!    trend along the body and the openings around the head;
@@ -37,13 +41,14 @@ use crate::body::{Body, BodyConfig, BodyConfigError, ModulePoses};
 use crate::decide::{
     FlowObservation, MAX_FRAME_WALL_POINTS, Opening, Throat, WallObservation, probe_cov_to_map,
 };
+use crate::flow_window::{FlowWindow, FlowWindowConfig, FlowWindowError};
 use crate::frame::{HeadPose, JointAngles, SensorFrame};
 use crate::gas::IdealGas;
 use crate::map::{MAX_BRANCHES, Section, probe_to_map};
 use crate::navigator::{Command, ConfigError, NavConfig, Navigator};
 use crate::probe::{
-    Direction, FaultReport, FlowSolution, PortSet, ProbeError, ProbeLayout, ProbeSolver,
-    SolveOptions, SolverConfig,
+    Direction, DirectionInvalid, FaultReport, FlowSolution, PortSet, ProbeError, ProbeLayout,
+    ProbeSolver, SolveOptions, SolverConfig,
 };
 use core::mem::MaybeUninit;
 
@@ -93,6 +98,8 @@ pub struct OnboardConfig<const P: usize, const M: usize, const S: usize> {
     pub throat_stations: usize,
     /// Decision settings.
     pub nav: NavConfig,
+    /// The windowed flow estimate for weak air.
+    pub flow_window: FlowWindowConfig,
 }
 
 impl<const P: usize, const M: usize, const S: usize> OnboardConfig<P, M, S> {
@@ -141,6 +148,7 @@ impl<const P: usize, const M: usize, const S: usize> OnboardConfig<P, M, S> {
             throat_every: 8,
             throat_stations: 4,
             nav: NavConfig::for_robot(radius),
+            flow_window: FlowWindowConfig::default(),
         }
     }
 }
@@ -156,6 +164,8 @@ pub enum OnboardError {
     Tactile(TactileError),
     /// The decision settings.
     Nav(ConfigError),
+    /// The windowed flow estimate's settings.
+    FlowWindow(FlowWindowError),
     /// A cadence or count out of range.
     Setting {
         /// Field name.
@@ -184,6 +194,9 @@ pub struct OnboardCounters {
     pub implausible_poses: u64,
     /// Frames whose contact channel did not report (a silent skin).
     pub silent_skin_frames: u64,
+    /// Steps whose flow was too weak for one frame (the windowed estimate
+    /// stood in).
+    pub weak_flow_steps: u64,
 }
 
 /// The navigator as embedded: frames in, commands out.
@@ -276,6 +289,7 @@ pub struct FrameNavigator<
     config: OnboardConfig<P, M, S>,
     body: Body<M, S>,
     solver: ProbeSolver<P>,
+    window: FlowWindow<P>,
     tactile: TactileMap<TW>,
     nav: Navigator<P, S, ST, W, JN>,
     last_pose: Option<HeadPose>,
@@ -367,6 +381,7 @@ impl<
         let body = Body::new(config.body).map_err(OnboardError::Body)?;
         let solver = ProbeSolver::new(config.probe_layout, config.gas, config.probe)
             .map_err(OnboardError::Probe)?;
+        let window = FlowWindow::new(config.flow_window).map_err(OnboardError::FlowWindow)?;
         let tactile = TactileMap::new(config.tactile).map_err(OnboardError::Tactile)?;
         let valid = config.nav.validate().map_err(OnboardError::Nav)?;
         let nav = Navigator::new(valid).map_err(OnboardError::Nav)?;
@@ -379,6 +394,7 @@ impl<
             config,
             body,
             solver,
+            window,
             tactile,
             nav,
             last_pose: None,
@@ -417,6 +433,12 @@ impl<
     #[must_use]
     pub const fn navigator(&self) -> &Navigator<P, S, ST, W, JN> {
         &self.nav
+    }
+
+    /// The windowed flow estimate.
+    #[must_use]
+    pub const fn flow_window(&self) -> &FlowWindow<P> {
+        &self.window
     }
 
     /// The tactile stage.
@@ -499,7 +521,7 @@ impl<
                     flow: None,
                     wall: None,
                 };
-                return self.nav.step_judged(&obs, verdict);
+                return self.nav.step_judged(&obs, verdict, None);
             }
             ClockVerdict::Late { time_s, .. } | ClockVerdict::Use { time_s, .. } => time_s,
         };
@@ -528,12 +550,19 @@ impl<
             self.last_joints = Some(j);
         }
         let pose = frame_pose.or(self.last_pose);
+        let mut weak = false;
         let flow = match (frame.port_pressures_pa.as_ref(), pose.as_ref()) {
             (Some(pr), Some(pose)) => {
-                Some(self.flow_observation(pr, frame.total_temperature_k, pose))
+                let (f, w) = self.flow_observation(pr, frame.total_temperature_k, pose);
+                self.window_add(frame.time_s, pr, frame.total_temperature_k, pose);
+                weak = w;
+                Some(f)
             }
             _ => None,
         };
+        if weak {
+            self.counters.weak_flow_steps = self.counters.weak_flow_steps.saturating_add(1);
+        }
         let mut obs = crate::navigator::Observation {
             time_s: frame.time_s,
             pose: frame.pose,
@@ -542,15 +571,57 @@ impl<
         };
         // Built in place: the observation is about a kilobyte.
         self.wall_observation(frame, pose.as_ref(), &mut obs.wall);
-        self.nav.step_judged(&obs, verdict)
+        let window = weak.then_some(self.window.estimate());
+        self.nav.step_judged(&obs, verdict, window)
     }
 
+    /// Fold the frame's pressures into the windowed estimate (ports out of
+    /// the probe fit stay out of it too). Density from the mean port
+    /// pressure (the static pressure to within the dynamic pressure, which
+    /// is what makes a flow weak) and the static temperature. A refused
+    /// frame (a time not after the last, a bad pose) leaves the window as
+    /// it was.
+    fn window_add(
+        &mut self,
+        time_s: f64,
+        pressures: &[f64; P],
+        total_temperature_k: Option<f64>,
+        pose: &HeadPose,
+    ) {
+        let (mut sum, mut n) = (0.0, 0u32);
+        for p in pressures.iter().filter(|p| p.is_finite()) {
+            sum += p;
+            n += 1;
+        }
+        if n == 0 {
+            return;
+        }
+        let t = total_temperature_k
+            .filter(|t| t.is_finite() && *t > 0.0)
+            .unwrap_or(self.config.assumed_static_temperature_k);
+        let Ok(rho) = self.config.gas.density_kg_per_m3(sum / f64::from(n), t) else {
+            return;
+        };
+        let _ = self.window.add(
+            time_s,
+            pressures,
+            &self.config.probe_layout,
+            pose,
+            rho,
+            self.excluded_ports,
+        );
+    }
+
+    /// The frame's flow observation, and whether its flow is too weak for
+    /// one frame (the low-flow guard withheld the direction, or a valid
+    /// solution's dynamic pressure is below the decision stage's lost-flow
+    /// threshold).
     fn flow_observation(
         &mut self,
         pressures: &[f64; P],
         total_temperature_k: Option<f64>,
         pose: &HeadPose,
-    ) -> FlowObservation {
+    ) -> (FlowObservation, bool) {
         // Ports the health stage has failed stay out of the fit, so a
         // persistent fault costs one fit a frame instead of a leave-one-out
         // search every frame. Every PORT_RECHECK_STEPS steps the fit uses
@@ -599,6 +670,13 @@ impl<
         }
         match solved {
             Ok((sol, excluded)) => {
+                let weak = match sol.direction {
+                    Direction::Invalid(DirectionInvalid::LowFlow { .. }) => true,
+                    Direction::Valid { .. } => {
+                        sol.dynamic_pressure_pa < self.config.nav.decide.min_dynamic_pressure_pa
+                    }
+                    Direction::Invalid(_) => false,
+                };
                 let mut f = flow_from_solution(
                     &sol,
                     pose,
@@ -609,11 +687,11 @@ impl<
                 );
                 // Still out of the fit: still failed.
                 f.port_failed_mask |= excluded;
-                f
+                (f, weak)
             }
             Err(_) => {
                 self.counters.probe_errors = self.counters.probe_errors.saturating_add(1);
-                FlowObservation {
+                let f = FlowObservation {
                     velocity_dir_map: None,
                     dir_cov_map: [[0.0; 3]; 3],
                     dynamic_pressure_pa: 0.0,
@@ -624,7 +702,8 @@ impl<
                     degraded: true,
                     port_suspect_mask: all_ports_mask(P),
                     port_failed_mask: 0,
-                }
+                };
+                (f, false)
             }
         }
     }

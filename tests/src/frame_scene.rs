@@ -65,10 +65,10 @@ pub const SENSORS: usize = MODULES * PADS_PER_MODULE;
 pub const BELLY_PAD: u16 = 3;
 
 /// The frame navigator the step-cost example and the frame-step bench
-/// measure: 7 ports, 7 joints, 32 contact slots, 8 modules, 32 pads, 120
+/// measure: 7 ports, 7 joints, 32 contact slots, 8 modules, 32 pads, 111
 /// tactile points, 128 stations, 256 wall-index points, 8 junctions (the
 /// standard 256 tactile and 512 wall-index points do not fit in 64 KiB).
-pub type CostFrameNavigator = FrameNavigator<7, 7, 32, 8, 32, 120, 128, 256, 8>;
+pub type CostFrameNavigator = FrameNavigator<7, 7, 32, 8, 32, 111, 128, 256, 8>;
 
 /// Robot geometry.
 #[derive(Debug, Clone, Copy, PartialEq)]

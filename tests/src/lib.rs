@@ -128,7 +128,84 @@ pub fn core_workload_digest() -> u64 {
     tactile_workload(&mut d);
     probe_workload(&mut d);
     frame_workload(&mut d);
+    flow_window_workload(&mut d);
     d.finish()
+}
+
+/// The windowed flow estimate (`nav_core::flow_window`) on weak air: a
+/// 0.3 m/s flow read by a 7-port head with a fixed pseudo-noise pattern
+/// (offsets from `libm::sin`, 0.03 Pa), the head dwelling, then crawling
+/// and yawing, then a turn past the discount angle and a change of flow.
+/// Every estimate's numbers are fed to `d`.
+pub fn flow_window_workload(d: &mut Fnv64) {
+    use nav_core::flow_window::{FlowWindow, FlowWindowConfig, WindowStatus};
+    use nav_core::frame::HeadPose;
+    use nav_core::probe::{ProbeLayout, deg};
+    let (Ok(layout), Ok(mut win)) = (
+        ProbeLayout::seven_port(deg(40.0), 0.03),
+        FlowWindow::<7>::new(FlowWindowConfig::default()),
+    ) else {
+        d.u64(u64::MAX);
+        return;
+    };
+    let rho = 1.2;
+    let mut x = 0.0;
+    for i in 0..900u32 {
+        let k = f64::from(i);
+        let t = 0.01 * k;
+        let (w, v, yaw) = match i {
+            0..300 => ([-0.3, 0.05, 0.0], 0.0, 0.0),
+            300..600 => ([-0.3, 0.05, 0.0], 0.1, 0.2 * libm::sin(0.5 * t)),
+            600..750 => ([-0.3, 0.05, 0.0], 0.1, 0.8),
+            _ => ([0.1, -0.3, 0.02], 0.05, 0.8),
+        };
+        x += v * 0.01;
+        let fwd = [libm::cos(yaw), libm::sin(yaw), 0.0];
+        let pose = HeadPose {
+            position_m: [x * fwd[0], x * fwd[1], 0.0],
+            orientation_wxyz: [libm::cos(0.5 * yaw), 0.0, 0.0, libm::sin(0.5 * yaw)],
+            position_sigma_m: 0.0,
+            attitude_sigma_rad: 0.0,
+        };
+        let rel = [w[0] - v * fwd[0], w[1] - v * fwd[1], w[2]];
+        let speed2 = rel[0] * rel[0] + rel[1] * rel[1] + rel[2] * rel[2];
+        let speed = libm::sqrt(speed2);
+        let mut p = [101_325.0; 7];
+        for (j, (o, n)) in p.iter_mut().zip(layout.normals()).enumerate() {
+            let nm = [
+                libm::cos(yaw) * n.x - libm::sin(yaw) * n.y,
+                libm::sin(yaw) * n.x + libm::cos(yaw) * n.y,
+                n.z,
+            ];
+            let c = if speed > 0.0 {
+                -(nm[0] * rel[0] + nm[1] * rel[1] + nm[2] * rel[2]) / speed
+            } else {
+                0.0
+            };
+            let noise = 0.03 * libm::sin(1.7 * k + 2.3 * f64::from(j as u32) + 0.01 * k * k);
+            *o += 0.5 * rho * speed2 * (1.0 - 2.25 * (1.0 - c * c)) + noise;
+        }
+        match win.add(t, &p, &layout, &pose, rho, 0) {
+            Ok(e) => {
+                d.u64(match e.status {
+                    WindowStatus::Empty => 0,
+                    WindowStatus::Integrating => 1,
+                    WindowStatus::Resolved => 2,
+                    WindowStatus::NoUsableFlow => 3,
+                    WindowStatus::DwellExpired => 4,
+                });
+                d.f64s(&e.velocity_dir_map.unwrap_or([9.0; 3]));
+                d.f64(e.dir_sigma_rad());
+                d.f64(e.dynamic_pressure_pa);
+                d.f64(e.dynamic_pressure_sigma_pa);
+                d.f64(e.flow_chi_square);
+                d.f64(e.sense_log_ratio);
+                d.u64(u64::from(e.discounts));
+            }
+            Err(_) => d.u64(u64::MAX - 2),
+        }
+    }
+    d.f64s(&win.head_velocity_m_per_s());
 }
 
 /// The frame-level navigator (`nav_core::onboard::FrameNavigator`) on an

@@ -367,6 +367,45 @@ fn probe_does_not_allocate() {
 }
 
 #[test]
+fn flow_window_does_not_allocate() {
+    // The windowed flow estimate: construction, frames (with a port left
+    // out and a NaN port), refused frames, and the estimate.
+    use nav_core::flow_window::{FlowWindow, FlowWindowConfig};
+    use nav_core::frame::HeadPose;
+    use nav_core::probe::{ProbeLayout, deg};
+    let layout = ProbeLayout::seven_port(deg(40.0), 0.03).unwrap();
+    let pose = HeadPose {
+        position_m: [0.0; 3],
+        orientation_wxyz: [1.0, 0.0, 0.0, 0.0],
+        position_sigma_m: 0.0,
+        attitude_sigma_rad: 0.0,
+    };
+    let (n, ok) = allocations_during(|| {
+        let mut win = FlowWindow::<7>::new(FlowWindowConfig::default()).unwrap();
+        let mut good = 0;
+        for i in 0..400u32 {
+            let k = f64::from(i);
+            let mut p = [101_325.0; 7];
+            for (j, o) in p.iter_mut().enumerate() {
+                *o += 0.05 * (1.0 - 2.25 * (j as f64 / 7.0)) + 0.03 * (1.3 * k + j as f64).sin();
+            }
+            if i == 7 {
+                p[2] = f64::NAN;
+            }
+            let mut q = pose;
+            q.position_m[0] = 0.001 * k;
+            if win.add(0.01 * k, &p, &layout, &q, 1.2, 1 << 4).is_ok() {
+                good += 1;
+            }
+        }
+        let late = win.add(0.0, &[1e5; 7], &layout, &pose, 1.2, 0).is_err();
+        good == 400 && late && win.estimate().dynamic_pressure_pa.is_finite()
+    });
+    assert_eq!(n, 0, "flow window allocated {n} times");
+    assert!(ok);
+}
+
+#[test]
 fn frame_navigator_does_not_allocate() {
     use nav_core::frame::{Contact, SensorFrame};
     use nav_core::onboard::{FrameNavigator, StandardFrameNavigator};

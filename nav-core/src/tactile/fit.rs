@@ -39,7 +39,13 @@
 //! Geometric fit: Levenberg–Marquardt on the orthogonal distances
 //! `d_i = |p_i - c| - r` (as in Shakarji 1998, J. Res. NIST 103(6)),
 //! started from the hyper fit, with an iteration cap and an explicit
-//! status. Covariance `sigma^2 (J^T J)^-1` with `sigma^2 = RSS / (n - 3)`.
+//! status. Covariance `sigma^2 (J^T J)^-1` with `sigma^2 = RSS / (k - 3)`,
+//! `k` the number of *distinct* points (a point repeated, as when a
+//! stationary robot feels the same contacts frame after frame, is one
+//! measurement, not many). With three or fewer distinct points, or a
+//! singular `J^T J`, the covariance is unknown and reported as infinite,
+//! never as zero: a circle through three points fits them exactly and says
+//! nothing about its own error.
 //!
 //! Every fit works on points shifted to their mean and scaled by their RMS
 //! distance from it, so the numbers it handles are of order one.
@@ -160,8 +166,13 @@ pub struct GeometricCircle {
     /// RMS orthogonal residual, m.
     pub rms_residual_m: f64,
     /// Covariance of `(centre x, centre y, radius)`, m^2, from the
-    /// residuals: `RSS / (n - 3) * (J^T J)^-1`. Zero for `n = 3`.
+    /// residuals: `RSS / (k - 3) * (J^T J)^-1` with `k` distinct points.
+    /// Infinite on the diagonal (unknown) for `k <= 3` or a singular
+    /// `J^T J`.
     pub covariance: Matrix3<f64>,
+    /// Distinct points (coordinates differing by more than `1e-9` of the
+    /// points' spread).
+    pub distinct_points: usize,
     /// How the solver ended.
     pub convergence: Convergence,
 }
@@ -737,8 +748,12 @@ fn geometric_circle_in(
         }
     }
     let n = points.len();
-    let sigma2_n = if n > 3 { cost / count_f64(n - 3) } else { 0.0 };
-    let cov_n = jtj.try_inverse().unwrap_or_else(Matrix3::zeros) * sigma2_n;
+    let k = distinct_points(points, &norm);
+    let unknown = Matrix3::from_diagonal_element(f64::INFINITY);
+    let cov_n = match jtj.try_inverse() {
+        Some(inv) if k > 3 && inv.iter().all(|v| v.is_finite()) => inv * (cost / count_f64(k - 3)),
+        _ => unknown,
+    };
     let s2 = norm.scale * norm.scale;
     Ok(GeometricCircle {
         circle: Circle {
@@ -747,8 +762,29 @@ fn geometric_circle_in(
         },
         rms_residual_m: libm::sqrt(cost / count_f64(n)) * norm.scale,
         covariance: cov_n * s2,
+        distinct_points: k,
         convergence,
     })
+}
+
+/// Distinct points: a point within `1e-9` of the spread (in normalised
+/// units) of an earlier one is a repeat. `O(n^2)` in the points given.
+fn distinct_points(points: &[Point2], norm: &Normaliser) -> usize {
+    const TOL2: f64 = 1e-18;
+    let mut k = 0usize;
+    for (i, p) in points.iter().enumerate() {
+        let a = norm.apply(p);
+        let repeat = points.get(..i).is_some_and(|before| {
+            before.iter().any(|q| {
+                let b = norm.apply(q);
+                sq(a[0] - b[0]) + sq(a[1] - b[1]) <= TOL2
+            })
+        });
+        if !repeat {
+            k += 1;
+        }
+    }
+    k
 }
 
 /// One Levenberg–Marquardt acceptance decision, shared by the circle and

@@ -54,7 +54,8 @@ pub use features::{
 };
 pub use section::{
     AxisSource, CircleSection, LowerBoundReason, PlaneSection, SectionEstimate, SectionFitSettings,
-    SectionSettings, SectionShape, UnknownReason, fit_plane_section,
+    SectionSettings, SectionShape, T_OVER_Z3, UnknownReason, fit_plane_section,
+    fit_plane_section_around, honest_radius_sigma_m, t_sigma_scale,
 };
 
 use crate::body::{Body, KinematicsError, ModulePoses, head_to_map};
@@ -504,5 +505,7 @@ fn wall_point(
     (module_to_map * Point3::from(p)).coords
 }
 
+#[cfg(test)]
+mod fit_weakness_tests;
 #[cfg(test)]
 mod tests;

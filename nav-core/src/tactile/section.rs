@@ -33,6 +33,27 @@
 //! below: at least half the points' extent, and, where the geometric fit
 //! ran, `1 / (kappa + k sigma_kappa)` with the fitted curvature `kappa`
 //! and its sigma, capped at [`SectionFitSettings::max_radius_m`].
+//!
+//! # Honest radius sigma
+//! The geometric fit's covariance rests on the residual variance of few
+//! points, so a normalised error follows Student's t with `k - 3` degrees
+//! of freedom (`k` distinct points), not the normal law: with 8 points a
+//! "3 sigma" interval would hold only 97 % of the time. The sigma is
+//! scaled by `t_{k-3}(1 - p) / 3`, `p` the normal tail beyond 3
+//! ([`T_OVER_Z3`]), so three reported sigmas cover what three sigmas of a
+//! normal error would. The radius is `1 / kappa`, and near the coverage
+//! limit the curvature is the parameter whose error is nearly normal: the
+//! reported radius sigma is the larger of the scaled linear one and a
+//! third of the distance from `r` to `1 / (kappa - 3 sigma_kappa)` (the
+//! long side; infinite when that curvature is not positive).
+//!
+//! Degenerate data (three or fewer distinct points, a singular normal
+//! matrix: the fit's covariance is unknown) give a lower bound only,
+//! [`LowerBoundReason::Degenerate`], at half the points' extent. A circle
+//! that leaves the station point (the body's axis, inside the conduit)
+//! outside has its centre on the wrong side of the points: a lower bound
+//! only, [`LowerBoundReason::WrongSide`], at half the extent, which no
+//! circle through the points can undercut.
 
 use super::ellipse::{GeometricEllipse, direct_ellipse, geometric_ellipse};
 use super::fit::{
@@ -111,6 +132,66 @@ pub enum LowerBoundReason {
     /// The radius is below the smallest plausible one (narrower than the
     /// body that touched it).
     BelowBody,
+    /// Three or fewer distinct points, or a singular normal matrix: the
+    /// fit's covariance is unknown.
+    Degenerate,
+    /// The fitted circle leaves the station point (inside the conduit)
+    /// outside: its centre is on the wrong side of the points.
+    WrongSide,
+}
+
+/// `t_nu(1 - p) / 3` for `nu = 1 ..= 40` degrees of freedom, `p` the upper
+/// tail of a standard normal beyond 3 (`1 - Phi(3)`), rounded up in the
+/// fourth decimal place: computed from the Student-t tail through the
+/// regularised incomplete beta function (Abramowitz and Stegun 26.7.1) by
+/// `tests/reference/student_t_quantiles.py` (mpmath), which writes the
+/// data file a test holds this table against.
+pub const T_OVER_Z3: [f64; 40] = [
+    78.6005, 6.4023, 3.0730, 2.2068, 1.8357, 1.6347, 1.5100, 1.4256, 1.3648, 1.3190, 1.2834,
+    1.2548, 1.2314, 1.2120, 1.1955, 1.1814, 1.1692, 1.1585, 1.1491, 1.1408, 1.1333, 1.1266, 1.1205,
+    1.1150, 1.1099, 1.1053, 1.1011, 1.0971, 1.0935, 1.0902, 1.0870, 1.0841, 1.0814, 1.0788, 1.0764,
+    1.0742, 1.0720, 1.0700, 1.0681, 1.0663,
+];
+
+/// The radius sigma the section reports for a geometric fit (module docs,
+/// "Honest radius sigma"): the fit's own sigma scaled by
+/// [`t_sigma_scale`] of `k - 3` degrees of freedom, or a third of the long
+/// side of the three-sigma curvature interval when that is larger;
+/// infinite for degenerate fits.
+#[must_use]
+pub fn honest_radius_sigma_m(g: &super::fit::GeometricCircle) -> f64 {
+    let r = g.circle.radius_m;
+    let raw = g.radius_sigma_m();
+    if !(raw.is_finite() && r > 0.0) || g.distinct_points <= 3 {
+        return f64::INFINITY;
+    }
+    let t = t_sigma_scale(g.distinct_points - 3);
+    let kappa = 1.0 / r;
+    let sk = t * raw / (r * r);
+    let long_side = if kappa > 3.0 * sk {
+        (1.0 / (kappa - 3.0 * sk) - r) / 3.0
+    } else {
+        f64::INFINITY
+    };
+    (t * raw).max(long_side)
+}
+
+/// The factor that turns a residual-based sigma with `dof` degrees of
+/// freedom into one whose three-sigma interval covers like a normal one:
+/// [`T_OVER_Z3`], and beyond 40 the Cornish-Fisher expansion of the t
+/// quantile (Abramowitz and Stegun 26.7.5, first two terms, with z = 3):
+/// `t / z = 1 + (z^2 + 1) / (4 nu) + (5 z^4 + 16 z^2 + 3) / (96 nu^2)`.
+/// Infinite for no degree of freedom.
+#[must_use]
+pub fn t_sigma_scale(dof: usize) -> f64 {
+    match dof {
+        0 => f64::INFINITY,
+        d if d <= T_OVER_Z3.len() => T_OVER_Z3.get(d - 1).copied().unwrap_or(f64::INFINITY),
+        d => {
+            let nu = count_f64(d);
+            1.0 + 2.5 / nu + 5.75 / (nu * nu)
+        }
+    }
 }
 
 /// A fitted circular section, in the section plane.
@@ -202,6 +283,20 @@ fn half_extent_m(points: &[Point2]) -> f64 {
 /// (direct fit, then geometric) when the coverage and count allow.
 #[must_use]
 pub fn fit_plane_section(points: &[Point2], settings: &SectionFitSettings) -> PlaneSection {
+    fit_plane_section_around(points, None, settings)
+}
+
+/// [`fit_plane_section`] knowing a point inside the conduit (`inside`,
+/// plane coordinates: the station point, the body's axis): a circle that
+/// leaves it outside is on the wrong side of the points
+/// ([`LowerBoundReason::WrongSide`]).
+#[must_use]
+#[allow(clippy::too_many_lines)]
+pub fn fit_plane_section_around(
+    points: &[Point2],
+    inside: Option<Point2>,
+    settings: &SectionFitSettings,
+) -> PlaneSection {
     let n = points.len();
     let unknown = |reason| PlaneSection {
         points: n,
@@ -238,10 +333,26 @@ pub fn fit_plane_section(points: &[Point2], settings: &SectionFitSettings) -> Pl
         );
     }
     let r = g.circle.radius_m;
-    let sr = g.radius_sigma_m();
-    // Curvature bound: kappa = 1/r, sigma_kappa = sigma_r / r^2.
+    let raw_sr = g.radius_sigma_m();
+    if !raw_sr.is_finite() || g.distinct_points <= 3 {
+        return lower(
+            half_extent_m(points),
+            LowerBoundReason::Degenerate,
+            coverage,
+        );
+    }
+    if let Some(c) = inside
+        && sq(c[0] - g.circle.centre[0]) + sq(c[1] - g.circle.centre[1]) > r * r
+    {
+        return lower(half_extent_m(points), LowerBoundReason::WrongSide, coverage);
+    }
+    let t = t_sigma_scale(g.distinct_points - 3);
+    let kappa = 1.0 / r;
+    let sk = t * raw_sr / (r * r);
+    let sr = honest_radius_sigma_m(&g);
+    // Curvature bound: 1 / (kappa + k sigma_kappa).
     let bound = || {
-        let curvature_bound = r / (1.0 + settings.lower_bound_sigmas * sr / r);
+        let curvature_bound = 1.0 / (kappa + settings.lower_bound_sigmas * sk);
         half_extent_m(points).max(curvature_bound)
     };
     if coverage < settings.min_coverage_rad {
@@ -282,7 +393,7 @@ pub fn fit_plane_section(points: &[Point2], settings: &SectionFitSettings) -> Pl
             radius_m: r,
             radius_sigma_m: sr,
             rms_residual_m: g.rms_residual_m,
-            covariance: g.covariance,
+            covariance: g.covariance * (t * t),
             convergence: g.convergence,
             hyper_radius_m: start.radius_m,
         }),
@@ -516,7 +627,7 @@ impl<const W: usize> TactileMap<W> {
             }
         }
         let pts = buf.get(..n).unwrap_or(&[]);
-        let plane = fit_plane_section(pts, &settings.fit);
+        let plane = fit_plane_section_around(pts, Some([0.0, 0.0]), &settings.fit);
         SectionEstimate {
             station: *station,
             axis_map: Unit::new_unchecked(axis),
