@@ -15,8 +15,8 @@ use crate::{
 };
 use nav_core::body::{BodyConfig, BodyConfigError, ModuleSpec, SensorSpec};
 use nav_core::decide::{
-    BackOutCause, BranchRecord, DecisionRecord, FrameDisposition, HealthFlags, Phase, ReasonCode,
-    SpeedLimit,
+    BackOutCause, BranchRecord, DeadEndRecord, DecisionRecord, FrameDisposition, HealthFlags,
+    Phase, ReasonCode, SpeedLimit, StallLoad, StallRecord,
 };
 use nav_core::frame::{Contact, HeadPose, JointAngles, SensorFrame};
 use nav_core::gas::IdealGas;
@@ -67,6 +67,7 @@ fn body_and_gas(c: &UpcConfig) -> Result<(Body, IdealGas), Fault> {
             module: s.module,
             axial_m: s.axial_m,
             angle_rad: s.angle_rad,
+            cap_polar_rad: s.on_nose_cap.then_some(s.cap_polar_rad),
         });
     }
     body.joint_sigma_rad = c.joint_sigma_rad;
@@ -263,6 +264,9 @@ fn body_field(b: BodyConfigError) -> Msg<UPC_FIELD_LEN> {
             Msg::of(format_args!("sensors[{sensor}].angle_rad"))
         }
         BodyConfigError::JointSigma { .. } => Msg::of(format_args!("joint_sigma_rad")),
+        BodyConfigError::SensorCap { sensor, .. } => {
+            Msg::of(format_args!("sensors[{sensor}].cap_polar_rad"))
+        }
     }
 }
 
@@ -333,21 +337,23 @@ pub(crate) fn sensor_frame<const P: usize>(
 
 // ------------------------------------------------------------- the codes
 
-const MODES: [(OperatingMode, u32); 5] = [
+const MODES: [(OperatingMode, u32); 6] = [
     (OperatingMode::Nominal, crate::UPC_MODE_NOMINAL),
     (OperatingMode::FlowDegraded, crate::UPC_MODE_FLOW_DEGRADED),
     (OperatingMode::TactileOnly, crate::UPC_MODE_TACTILE_ONLY),
     (OperatingMode::FlowOnly, crate::UPC_MODE_FLOW_ONLY),
     (OperatingMode::Hold, crate::UPC_MODE_HOLD),
+    (OperatingMode::FlowWeak, crate::UPC_MODE_FLOW_WEAK),
 ];
 
-const CHANNELS: [(ChannelState, u32); 3] = [
+const CHANNELS: [(ChannelState, u32); 4] = [
     (ChannelState::Ok, UPC_CHANNEL_OK),
     (ChannelState::Degraded, UPC_CHANNEL_DEGRADED),
     (ChannelState::Failed, UPC_CHANNEL_FAILED),
+    (ChannelState::Weak, crate::UPC_CHANNEL_WEAK),
 ];
 
-const REASONS: [(ReasonCode, u32); 17] = [
+const REASONS: [(ReasonCode, u32); 20] = [
     (
         ReasonCode::FollowUpstream,
         crate::UPC_REASON_FOLLOW_UPSTREAM,
@@ -389,9 +395,24 @@ const REASONS: [(ReasonCode, u32); 17] = [
         ReasonCode::HoldClockUntrusted,
         crate::UPC_REASON_HOLD_CLOCK_UNTRUSTED,
     ),
+    (
+        ReasonCode::FollowWeakFlow,
+        crate::UPC_REASON_FOLLOW_WEAK_FLOW,
+    ),
+    (
+        ReasonCode::DwellWeakFlow,
+        crate::UPC_REASON_DWELL_WEAK_FLOW,
+    ),
+    (ReasonCode::HoldStalled, crate::UPC_REASON_HOLD_STALLED),
 ];
 
-const SPEEDS: [(SpeedLimit, u32); 8] = [
+const STALLS: [(StallLoad, u32); 3] = [
+    (StallLoad::NoseLoaded, crate::UPC_STALL_NOSE_LOADED),
+    (StallLoad::SidesOnly, crate::UPC_STALL_SIDES_ONLY),
+    (StallLoad::Unfelt, crate::UPC_STALL_UNFELT),
+];
+
+const SPEEDS: [(SpeedLimit, u32); 9] = [
     (SpeedLimit::Cruise, crate::UPC_SPEED_CRUISE),
     (SpeedLimit::Wall, crate::UPC_SPEED_WALL),
     (SpeedLimit::Throat, crate::UPC_SPEED_THROAT),
@@ -400,6 +421,7 @@ const SPEEDS: [(SpeedLimit, u32); 8] = [
     (SpeedLimit::Feel, crate::UPC_SPEED_FEEL),
     (SpeedLimit::BackOut, crate::UPC_SPEED_BACK_OUT),
     (SpeedLimit::Stopped, crate::UPC_SPEED_STOPPED),
+    (SpeedLimit::Touch, crate::UPC_SPEED_TOUCH),
 ];
 
 const FRAMES: [(FrameDisposition, u32); 6] = [
@@ -423,7 +445,7 @@ const FRAMES: [(FrameDisposition, u32); 6] = [
     ),
 ];
 
-const CAUSES: [(BackOutCause, u32); 4] = [
+const CAUSES: [(BackOutCause, u32); 7] = [
     (BackOutCause::DeadEnd, UPC_BACK_OUT_DEAD_END),
     (BackOutCause::LostFlow, UPC_BACK_OUT_LOST_FLOW),
     (
@@ -431,6 +453,12 @@ const CAUSES: [(BackOutCause, u32); 4] = [
         UPC_BACK_OUT_THROAT_TOO_NARROW,
     ),
     (BackOutCause::ChildExhausted, UPC_BACK_OUT_CHILD_EXHAUSTED),
+    (BackOutCause::Obstruction, crate::UPC_BACK_OUT_OBSTRUCTION),
+    (BackOutCause::Stalled, crate::UPC_BACK_OUT_STALLED),
+    (
+        BackOutCause::NarrowingAhead,
+        crate::UPC_BACK_OUT_NARROWING_AHEAD,
+    ),
 ];
 
 const DEAD_ENDS: [(DeadEndCause, u32); 3] = [
@@ -651,6 +679,23 @@ pub(crate) fn command_to_c(c: &Command, out: &mut UpcCommand) {
             status,
         };
     }
+    if let Some(st) = &r.stall {
+        o.has_stall = true;
+        o.stall_load = to_code(&STALLS, st.load);
+        o.stall_window_s = st.window_s;
+        o.stall_expected_m = st.expected_m;
+        o.stall_advanced_m = st.advanced_m;
+    }
+    if let Some(d) = &r.dead_end {
+        o.has_dead_end = true;
+        o.dead_end_cause = to_code(&CAUSES, d.cause);
+        o.has_dead_end_width = d.width_m.is_some();
+        o.dead_end_width_m = d.width_m.unwrap_or(0.0);
+        o.has_dead_end_junction = d.junction.is_some();
+        o.dead_end_junction = d.junction.unwrap_or(0);
+        o.has_dead_end_next_branch = d.next_branch.is_some();
+        o.dead_end_next_branch = d.next_branch.unwrap_or(0);
+    }
     *out = o;
 }
 
@@ -744,6 +789,26 @@ pub fn command_from_c(o: &UpcCommand) -> Result<Command, Fault> {
             ridge_gradient_per_m: some_if(o.has_ridge_gradient, o.ridge_gradient_per_m),
             speed_limit: from_code(&SPEEDS, o.speed_limit, "speed_limit")?,
             branch,
+            stall: if o.has_stall {
+                Some(StallRecord {
+                    load: from_code(&STALLS, o.stall_load, "stall_load")?,
+                    window_s: o.stall_window_s,
+                    expected_m: o.stall_expected_m,
+                    advanced_m: o.stall_advanced_m,
+                })
+            } else {
+                None
+            },
+            dead_end: if o.has_dead_end {
+                Some(DeadEndRecord {
+                    cause: from_code(&CAUSES, o.dead_end_cause, "dead_end_cause")?,
+                    width_m: some_if(o.has_dead_end_width, o.dead_end_width_m),
+                    junction: o.has_dead_end_junction.then_some(o.dead_end_junction),
+                    next_branch: o.has_dead_end_next_branch.then_some(o.dead_end_next_branch),
+                })
+            } else {
+                None
+            },
         },
         health: HealthFlags {
             flow: from_code(&CHANNELS, o.health_flow, "health_flow")?,

@@ -72,6 +72,8 @@ fn config_from_robot(r: &RobotSpec, c: &mut UpcConfig) -> Result<(), Fault> {
                     module: u16::try_from(i).unwrap_or(u16::MAX),
                     axial_m: s.axial_m,
                     angle_rad: s.angle_deg.to_radians(),
+                    on_nose_cap: s.cap_polar_deg.is_some(),
+                    cap_polar_rad: s.cap_polar_deg.map_or(0.0, f64::to_radians),
                 };
             }
             k += 1;

@@ -148,6 +148,9 @@ pub const UPC_MODE_TACTILE_ONLY: u32 = 2;
 pub const UPC_MODE_FLOW_ONLY: u32 = 3;
 /// Operating mode: holding.
 pub const UPC_MODE_HOLD: u32 = 4;
+/// Operating mode: flow too weak for one frame; following the windowed
+/// estimate slowly, or dwelling while it integrates.
+pub const UPC_MODE_FLOW_WEAK: u32 = 5;
 
 /// Channel state: usable.
 pub const UPC_CHANNEL_OK: u32 = 0;
@@ -155,6 +158,9 @@ pub const UPC_CHANNEL_OK: u32 = 0;
 pub const UPC_CHANNEL_DEGRADED: u32 = 1;
 /// Channel state: not usable.
 pub const UPC_CHANNEL_FAILED: u32 = 2;
+/// Channel state: the probe works but the flow is too weak for one frame
+/// (the windowed estimate leads).
+pub const UPC_CHANNEL_WEAK: u32 = 3;
 
 /// Reason: heading upstream, centred, standoff kept.
 pub const UPC_REASON_FOLLOW_UPSTREAM: u32 = 0;
@@ -191,6 +197,15 @@ pub const UPC_REASON_HOLD_AT_SOURCE: u32 = 14;
 pub const UPC_REASON_HOLD_MODE_SETTLING: u32 = 15;
 /// Reason: the frame's time stamp is not trusted.
 pub const UPC_REASON_HOLD_CLOCK_UNTRUSTED: u32 = 16;
+/// Reason: flow too weak for one frame; following the windowed estimate
+/// upstream slowly.
+pub const UPC_REASON_FOLLOW_WEAK_FLOW: u32 = 17;
+/// Reason: flow too weak for one frame and not yet resolved; stopped,
+/// integrating.
+pub const UPC_REASON_DWELL_WEAK_FLOW: u32 = 18;
+/// Reason: stalled while backing out (the way back is blocked too);
+/// holding.
+pub const UPC_REASON_HOLD_STALLED: u32 = 19;
 
 /// Speed cap: cruise.
 pub const UPC_SPEED_CRUISE: u32 = 0;
@@ -208,6 +223,8 @@ pub const UPC_SPEED_FEEL: u32 = 5;
 pub const UPC_SPEED_BACK_OUT: u32 = 6;
 /// Speed cap: stopped.
 pub const UPC_SPEED_STOPPED: u32 = 7;
+/// Speed cap: the nose is touching; creeping while sliding off.
+pub const UPC_SPEED_TOUCH: u32 = 8;
 
 /// Frame disposition: used in full.
 pub const UPC_FRAME_USED: u32 = 0;
@@ -243,6 +260,19 @@ pub const UPC_BACK_OUT_LOST_FLOW: u32 = 1;
 pub const UPC_BACK_OUT_THROAT_TOO_NARROW: u32 = 2;
 /// Back-out cause: every branch of a child junction failed.
 pub const UPC_BACK_OUT_CHILD_EXHAUSTED: u32 = 3;
+/// Back-out cause: stalled with the nose loaded (an obstruction ahead).
+pub const UPC_BACK_OUT_OBSTRUCTION: u32 = 4;
+/// Back-out cause: stalled with nothing felt ahead.
+pub const UPC_BACK_OUT_STALLED: u32 = 5;
+/// Back-out cause: the nose felt the way ahead narrower than the body.
+pub const UPC_BACK_OUT_NARROWING_AHEAD: u32 = 6;
+
+/// Stall load: the nose was loaded.
+pub const UPC_STALL_NOSE_LOADED: u32 = 0;
+/// Stall load: only the body's sides were touching.
+pub const UPC_STALL_SIDES_ONLY: u32 = 1;
+/// Stall load: nothing was felt.
+pub const UPC_STALL_UNFELT: u32 = 2;
 
 /// Branch status: not yet decided.
 pub const UPC_BRANCH_UNEXPLORED: u32 = 0;
@@ -303,6 +333,12 @@ pub struct UpcSensor {
     pub axial_m: f64,
     /// Angle around the module axis from +y toward +z, rad.
     pub angle_rad: f64,
+    /// The sensor sits on the head's nose cap (`module` must be 0) at
+    /// polar angle `cap_polar_rad` from the head axis; `axial_m` is then
+    /// unused. False (the zeroed default): on the side skin.
+    pub on_nose_cap: bool,
+    /// Polar angle from the head axis, rad, in `[0, pi/2]` (nose cap only).
+    pub cap_polar_rad: f64,
 }
 
 /// Navigator configuration: a plain struct, filled by
@@ -582,6 +618,33 @@ pub struct UpcCommand {
     pub has_branch: bool,
     /// Branch comparison.
     pub branch: UpcBranchRecord,
+    /// `stall_*` are valid: the head did not advance as commanded over the
+    /// last window.
+    pub has_stall: bool,
+    /// What the skin felt during the stall, `UPC_STALL_*`.
+    pub stall_load: u32,
+    /// Stall window length, s.
+    pub stall_window_s: f64,
+    /// Distance commanded over the window (less what the latency hides), m.
+    pub stall_expected_m: f64,
+    /// Distance the odometry shows over the window, m.
+    pub stall_advanced_m: f64,
+    /// `dead_end_*` are valid: a dead end was found this step.
+    pub has_dead_end: bool,
+    /// Why the way ahead ended, `UPC_BACK_OUT_*`.
+    pub dead_end_cause: u32,
+    /// `dead_end_width_m` is valid.
+    pub has_dead_end_width: bool,
+    /// Clear width the nose measured ahead, m.
+    pub dead_end_width_m: f64,
+    /// `dead_end_junction` is valid (false: no junction known; holding).
+    pub has_dead_end_junction: bool,
+    /// The junction backed out to.
+    pub dead_end_junction: u16,
+    /// `dead_end_next_branch` is valid (false: nothing left there).
+    pub has_dead_end_next_branch: bool,
+    /// The branch to be entered next at that junction.
+    pub dead_end_next_branch: u8,
 }
 
 /// Counters kept by the navigator.

@@ -32,6 +32,7 @@ fn body() -> Body<4, 32> {
                 module: m,
                 axial_m: 0.125,
                 angle_rad: f64::from(j) * std::f64::consts::FRAC_PI_4,
+                cap_polar_rad: None,
             });
         }
     }

@@ -22,6 +22,13 @@
 //!   face and angle `psi` around the axis, measured from +y toward +z, has
 //!   skin point `(-s, r cos psi, r sin psi)` and outward normal
 //!   `(0, cos psi, sin psi)`, both in the module frame.
+//! - A *nose-cap* sensor on the head (module 0) at polar angle `theta`
+//!   from the head axis and angle `psi` around it sits on the nose cap, the
+//!   hemisphere of the head's radius `r` on its front face (the simulator
+//!   keeps this ball clear of the walls within the skin compliance): skin
+//!   point `r (cos theta, sin theta cos psi, sin theta sin psi)` and outward
+//!   normal `(cos theta, sin theta cos psi, sin theta sin psi)`, module
+//!   frame. At `theta = 0` it is the nose tip, with an axial normal.
 //! - `Contact.sensor` indexes the sensors *of that module*, in the order
 //!   they appear in [`BodyConfig::sensors`].
 //!
@@ -55,6 +62,9 @@ pub struct SensorSpec {
     pub axial_m: f64,
     /// Angle around the module axis from +y toward +z, rad (finite).
     pub angle_rad: f64,
+    /// On the head's nose cap at this polar angle from the head axis, rad,
+    /// in `[0, pi/2]` (`axial_m` is then unused); `None`: on the side skin.
+    pub cap_polar_rad: Option<f64>,
 }
 
 /// Body configuration: up to `M` modules and `S` contact sensors in all.
@@ -146,6 +156,16 @@ pub enum BodyConfigError {
         axial_m: f64,
         /// The module length, m.
         length_m: f64,
+    },
+    /// A nose-cap sensor off the head, or with a polar angle outside
+    /// `[0, pi/2]`.
+    SensorCap {
+        /// Sensor index in the configuration.
+        sensor: usize,
+        /// Its module.
+        module: u16,
+        /// The polar angle given, rad.
+        polar_rad: f64,
     },
     /// A sensor angle that is not finite.
     SensorAngle {
@@ -374,6 +394,17 @@ impl<const M: usize, const S: usize> Body<M, S> {
                     length_m: m.length_m,
                 });
             }
+            if let Some(th) = s.cap_polar_rad
+                && !(s.module == 0
+                    && th.is_finite()
+                    && (0.0..=core::f64::consts::FRAC_PI_2).contains(&th))
+            {
+                return Err(BodyConfigError::SensorCap {
+                    sensor: i,
+                    module: s.module,
+                    polar_rad: th,
+                });
+            }
             if !s.angle_rad.is_finite() {
                 return Err(BodyConfigError::SensorAngle {
                     sensor: i,
@@ -485,12 +516,21 @@ impl<const M: usize, const S: usize> Body<M, S> {
 
     /// Skin point and outward normal of the `j`-th sensor of module `k`, in
     /// module `k`'s frame: `(-s, r cos psi, r sin psi)` and
-    /// `(0, cos psi, sin psi)`.
+    /// `(0, cos psi, sin psi)` on the side skin; on the nose cap as the
+    /// module docs give.
     #[must_use]
     pub fn skin_point(&self, k: usize, j: usize) -> Option<SkinPoint> {
         let s = self.sensor(k, j)?;
         let m = self.module(k)?;
         let (sp, cp) = (libm::sin(s.angle_rad), libm::cos(s.angle_rad));
+        if let Some(th) = s.cap_polar_rad {
+            let (st, ct) = (libm::sin(th), libm::cos(th));
+            let n = Vector3::new(ct, st * cp, st * sp);
+            return Some(SkinPoint {
+                point_module_m: n * m.radius_m,
+                normal_module: Unit::new_normalize(n),
+            });
+        }
         Some(SkinPoint {
             point_module_m: Vector3::new(-s.axial_m, m.radius_m * cp, m.radius_m * sp),
             normal_module: Unit::new_unchecked(Vector3::new(0.0, cp, sp)),
@@ -646,16 +686,19 @@ mod tests {
             module: 1,
             axial_m: 0.1,
             angle_rad: 0.0,
+            cap_polar_rad: None,
         }));
         assert!(c.push_sensor(SensorSpec {
             module: 0,
             axial_m: 0.2,
             angle_rad: core::f64::consts::FRAC_PI_2,
+            cap_polar_rad: None,
         }));
         assert!(c.push_sensor(SensorSpec {
             module: 1,
             axial_m: 0.3,
             angle_rad: core::f64::consts::PI,
+            cap_polar_rad: None,
         }));
         Body::new(c).unwrap()
     }
@@ -747,6 +790,7 @@ mod tests {
             module: 3,
             axial_m: 0.0,
             angle_rad: 0.0,
+            cap_polar_rad: None,
         });
         assert!(matches!(
             Body::new(c),
@@ -760,6 +804,7 @@ mod tests {
             module: 0,
             axial_m: 0.31,
             angle_rad: 0.0,
+            cap_polar_rad: None,
         });
         assert!(matches!(
             Body::new(c),

@@ -283,6 +283,14 @@ impl Display for BodyConfigError {
                 f,
                 "sensors[{sensor}].axial_m = {axial_m}: must lie in [0, {length_m}] (the module length)"
             ),
+            Self::SensorCap {
+                sensor,
+                module,
+                polar_rad,
+            } => write!(
+                f,
+                "sensors[{sensor}].polar_rad = {polar_rad}: a nose-cap sensor must sit on the head (module {module} given) at a polar angle in [0, pi/2]"
+            ),
             Self::SensorAngle { sensor, angle_rad } => write!(
                 f,
                 "sensors[{sensor}].angle_rad = {angle_rad}: must be finite"
@@ -419,6 +427,8 @@ impl ConfigField {
             Self::StationSpacing => "station_spacing_m",
             Self::FrameTiming => "reorder_window_s / pose_timeout_s",
             Self::PoseLimits => "pose_limits",
+            Self::TouchSpeed => "decide.skin_compliance_m / decide.sensing_latency_s",
+            Self::Stall => "decide.stall_distance_m / decide.stall_fraction",
             Self::Capacity => "capacity (const generic)",
         }
     }

@@ -30,7 +30,8 @@
 
 use crate::decide::{
     DecideConfig, DecideState, Decision, DecisionRecord, FlowObservation, FrameDisposition,
-    HealthFlags, HealthView, Perception, Phase, ReasonCode, SpeedLimit, WallObservation, decide,
+    HealthFlags, HealthView, Perception, Phase, ReasonCode, SpeedLimit, StallWatch,
+    WallObservation, decide,
 };
 use crate::digest::Fnv64;
 use crate::flow_window::{WindowEstimate, WindowStatus};
@@ -115,6 +116,18 @@ impl Command {
             d.f64(b.continuity_residual);
             d.f64s(&b.flux_kg_per_s);
             d.f64s(&b.width_m);
+        }
+        if let Some(s) = &r.stall {
+            d.u64(s.load as u64);
+            d.f64(s.window_s);
+            d.f64(s.expected_m);
+            d.f64(s.advanced_m);
+        }
+        if let Some(e) = &r.dead_end {
+            d.u64(e.cause as u64);
+            d.f64(e.width_m.unwrap_or(-1.0));
+            d.u64(e.junction.map_or(u64::MAX, u64::from));
+            d.u64(e.next_branch.map_or(99, u64::from));
         }
         d.u64(u64::from(self.health.failed_ports));
         d.u64(self.health.failed_contacts);
@@ -229,6 +242,11 @@ pub enum ConfigField {
     FrameTiming,
     /// `pose_limits.*`.
     PoseLimits,
+    /// `decide.skin_compliance_m` / `decide.sensing_latency_s`: the feel
+    /// speed must let the skin stop the head within its compliance.
+    TouchSpeed,
+    /// `decide.stall_distance_m` / `decide.stall_fraction`.
+    Stall,
     /// A capacity const generic (`P > 32`, `C > 64`, or `S`, `W`, `JN` zero).
     Capacity,
 }
@@ -307,6 +325,18 @@ impl NavConfig {
                 continuity_tolerance: 0.5,
                 arrive_m: 2.0 * r,
                 came_from_cos: -0.5,
+                // A 5 mm skin, as the demo robots' (invented). The latency
+                // is three 10 ms frames: the touch sampled, the command
+                // computed, the drive answering (an assumption, not a
+                // measured figure). Feel speed * latency = 4.5 mm, within
+                // the skin.
+                skin_compliance_m: 0.005,
+                sensing_latency_s: 0.03,
+                // A stall must command 4 cm (well above the odometry's
+                // 5 mm/sqrt(m) walk over that distance) and show less than
+                // a quarter of it.
+                stall_distance_m: 0.04,
+                stall_fraction: 0.25,
             },
             health: HealthConfig {
                 suspect_to_failed_frames: 10,
@@ -383,6 +413,19 @@ impl NavConfig {
         )?;
         nonneg(F::ContinuityTolerance, d.continuity_tolerance)?;
         pos(F::Arrive, d.arrive_m)?;
+        pos(F::TouchSpeed, d.skin_compliance_m)?;
+        pos(F::TouchSpeed, d.sensing_latency_s)?;
+        check(
+            F::TouchSpeed,
+            d.feel_speed_m_per_s,
+            d.feel_speed_m_per_s <= d.touch_speed_m_per_s(),
+        )?;
+        pos(F::Stall, d.stall_distance_m)?;
+        check(
+            F::Stall,
+            d.stall_fraction,
+            d.stall_fraction > 0.0 && d.stall_fraction < 1.0,
+        )?;
         check(
             F::CameFrom,
             d.came_from_cos,
@@ -745,6 +788,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
                 phase: Phase::Follow,
                 in_junction: None,
                 last_heading_map: [1.0, 0.0, 0.0],
+                stall: StallWatch::NEW,
             },
             pose: None,
             pose_time_s: f64::NEG_INFINITY,
@@ -870,6 +914,8 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
                     ridge_gradient_per_m: None,
                     speed_limit: SpeedLimit::Stopped,
                     branch: None,
+                    stall: None,
+                    dead_end: None,
                 };
                 Command {
                     time_s: rec.time_s,
@@ -1091,6 +1137,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
         let perception = Perception {
             time_s: t,
             position_m: position,
+            pose_fresh: self.pose.is_some() && self.pose_time_s == t,
             forward_map: forward,
             flow: self.filter.est,
             flow_weak_since_s: self.filter.weak_since_s,

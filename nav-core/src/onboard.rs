@@ -286,7 +286,7 @@ pub struct FrameNavigator<
     const W: usize,
     const JN: usize,
 > {
-    config: OnboardConfig<P, M, S>,
+    config: StepSettings,
     body: Body<M, S>,
     solver: ProbeSolver<P>,
     window: FlowWindow<P>,
@@ -302,6 +302,21 @@ pub struct FrameNavigator<
     head_arc_m: f64,
     body_length_m: f64,
     counters: OnboardCounters,
+}
+
+/// The settings a step reads that no stage keeps itself (the body, the
+/// probe layout and the decision settings live in their stages: one copy
+/// of each in the state).
+#[derive(Debug, Clone, Copy, PartialEq)]
+struct StepSettings {
+    gas: IdealGas,
+    assumed_static_temperature_k: f64,
+    section: SectionSettings,
+    throat: ThroatSettings,
+    openings: OpeningSettings,
+    section_every: u32,
+    throat_every: u32,
+    throat_stations: usize,
 }
 
 /// A frame navigator for the demo robots: 7 ports, up to 8 modules (7
@@ -391,7 +406,16 @@ impl<
             .map(|m| m.length_m)
             .sum();
         Ok(Self {
-            config,
+            config: StepSettings {
+                gas: config.gas,
+                assumed_static_temperature_k: config.assumed_static_temperature_k,
+                section: config.section,
+                throat: config.throat,
+                openings: config.openings,
+                section_every: config.section_every,
+                throat_every: config.throat_every,
+                throat_stations: config.throat_stations,
+            },
             body,
             solver,
             window,
@@ -459,10 +483,12 @@ impl<
         self.counters
     }
 
-    /// The configuration.
+    /// The body (its configuration: [`Body::config`]). The probe layout
+    /// is the solver's and the decision settings the navigator's
+    /// ([`Navigator::config`]); the navigator keeps one copy of each.
     #[must_use]
-    pub const fn config(&self) -> &OnboardConfig<P, M, S> {
-        &self.config
+    pub const fn body(&self) -> &Body<M, S> {
+        &self.body
     }
 
     /// One step: one sensor frame in, one command out.
@@ -605,7 +631,7 @@ impl<
         let _ = self.window.add(
             time_s,
             pressures,
-            &self.config.probe_layout,
+            self.solver.model().layout(),
             pose,
             rho,
             self.excluded_ports,
@@ -673,7 +699,7 @@ impl<
                 let weak = match sol.direction {
                     Direction::Invalid(DirectionInvalid::LowFlow { .. }) => true,
                     Direction::Valid { .. } => {
-                        sol.dynamic_pressure_pa < self.config.nav.decide.min_dynamic_pressure_pa
+                        sol.dynamic_pressure_pa < self.nav.config().decide.min_dynamic_pressure_pa
                     }
                     Direction::Invalid(_) => false,
                 };
@@ -804,13 +830,19 @@ impl<
         let forward = probe_to_map([1.0, 0.0, 0.0], pose).unwrap_or([1.0, 0.0, 0.0]);
         let mut n = 0usize;
         let mut end_ahead = false;
+        // Nose contacts: their offsets across the head axis, and their sum.
+        let head = pose.position_m;
+        let mut nose = [[0.0f64; 3]; NOSE_POINTS];
+        let mut nose_n = 0usize;
+        let mut nose_sum = [0.0f64; 3];
         for p in self
             .tactile
             .points_since(frame.time_s)
             .filter(|p| p.touched && p.time_s == frame.time_s)
         {
+            let q = [p.point_map_m.x, p.point_map_m.y, p.point_map_m.z];
             if let Some(slot) = w.wall_points_m.get_mut(n) {
-                *slot = [p.point_map_m.x, p.point_map_m.y, p.point_map_m.z];
+                *slot = q;
                 n += 1;
             }
             let along = p.normal_map.x * forward[0]
@@ -819,9 +851,24 @@ impl<
             if p.module == 0 && along > END_AHEAD_COS {
                 end_ahead = true;
             }
+            if p.module == 0 && along > NOSE_COS {
+                let rel = crate::map::sub(q, head);
+                let lat = crate::map::reject(rel, forward);
+                if let Some(slot) = nose.get_mut(nose_n) {
+                    *slot = lat;
+                    nose_n += 1;
+                    nose_sum = crate::map::add(nose_sum, q);
+                }
+            }
         }
         w.wall_point_count = u8::try_from(n.min(MAX_FRAME_WALL_POINTS)).unwrap_or(u8::MAX);
         w.end_ahead = end_ahead;
+        w.nose_loaded = nose_n > 0;
+        w.nose_point_m = (nose_n > 0).then(|| {
+            let k = 1.0 / f64::from(u32::try_from(nose_n).unwrap_or(1));
+            crate::map::scale(nose_sum, k)
+        });
+        w.nose_width_m = nose_span_m(nose.get(..nose_n).unwrap_or(&[]));
         // Keep the geometry for the steps between fits: the template's
         // per-frame fields (wall points, their count, end ahead) stay
         // cleared, the rest follows this step.
@@ -869,6 +916,32 @@ impl<
 /// A touched head contact whose wall normal points this close to straight
 /// ahead (cosine) counts as wall across the path.
 const END_AHEAD_COS: f64 = 0.7;
+
+/// A head contact whose normal has at least this cosine with the head axis
+/// loads the nose (nose-cap sensors up to 60 degrees from the tip).
+const NOSE_COS: f64 = 0.5;
+
+/// Nose contacts kept per frame for the width across them.
+const NOSE_POINTS: usize = 16;
+
+/// The widest span between two nose contacts on opposite sides of the head
+/// axis (their offsets across it more than 90 degrees apart): the clear
+/// width of the way ahead that the nose has measured. `None` when every
+/// contact is on one side (a wall to steer off, not a narrowing).
+fn nose_span_m(lateral: &[[f64; 3]]) -> Option<f64> {
+    let mut best: Option<f64> = None;
+    for (i, a) in lateral.iter().enumerate() {
+        for b in lateral.iter().skip(i + 1) {
+            if crate::map::dot(*a, *b) < 0.0 {
+                let d = crate::map::norm(crate::map::sub(*a, *b));
+                if best.is_none_or(|x| d > x) {
+                    best = Some(d);
+                }
+            }
+        }
+    }
+    best
+}
 
 fn all_ports_mask(n: usize) -> u32 {
     if n >= 32 { u32::MAX } else { (1u32 << n) - 1 }

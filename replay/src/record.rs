@@ -256,6 +256,11 @@ pub struct SensorSpec {
     pub angle_deg: f64,
     /// Whether the sensor reports a contact normal.
     pub measures_normal: bool,
+    /// On the head's nose cap at this polar angle from the head axis, deg
+    /// (`axial_m` unused); absent: on the side skin. Robot specs written
+    /// before nose caps existed have no such key and read as side skin.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub cap_polar_deg: Option<f64>,
 }
 
 /// One rigid module of the body.

@@ -119,6 +119,7 @@ fn body_config(robot: &RobotSpec) -> Result<BodyConfig<MAX_MODULES, MAX_SENSORS>
                 module: u16::try_from(k).unwrap_or(u16::MAX),
                 axial_m: s.axial_m,
                 angle_rad: s.angle_deg.to_radians(),
+                cap_polar_rad: s.cap_polar_deg.map(f64::to_radians),
             });
         }
     }

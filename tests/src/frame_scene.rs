@@ -112,6 +112,7 @@ impl Robot {
                     module: u16::try_from(m).unwrap_or(0),
                     axial_m: self.pad_axial_m,
                     angle_rad: Self::pad_angle_rad(j),
+                    cap_polar_rad: None,
                 });
             }
         }

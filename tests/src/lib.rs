@@ -346,6 +346,7 @@ pub fn tactile_workload(d: &mut Fnv64) {
                 module: m,
                 axial_m: 0.1,
                 angle_rad: f64::from(j) * core::f64::consts::FRAC_PI_4,
+                cap_polar_rad: None,
             });
         }
     }

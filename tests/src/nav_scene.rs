@@ -34,6 +34,10 @@ pub struct Segment {
     pub source: bool,
     /// Parent segment.
     pub parent: Option<usize>,
+    /// A pinch across the segment: `(distance from a, clear width)`, m.
+    /// The head's nose cap meets it; a head of [`Sim::body_radius_m`]
+    /// cannot pass it when narrower than its body.
+    pub pinch: Option<(f64, f64)>,
 }
 
 /// A scene.
@@ -53,6 +57,7 @@ const EMPTY_SEG: Segment = Segment {
     closed_end: false,
     source: false,
     parent: None,
+    pinch: None,
 };
 
 impl Scene {
@@ -90,6 +95,13 @@ pub struct ForkBranch {
     pub dead_end: bool,
 }
 
+/// Pinch segment `k` of `scene` at `at_m` from its start to `width_m`.
+pub fn pinch(scene: &mut Scene, k: usize, at_m: f64, width_m: f64) {
+    if let Some(s) = scene.segs.get_mut(k) {
+        s.pinch = Some((at_m, width_m));
+    }
+}
+
 /// A trunk along +x ending at the origin, where `branches` fork off; each
 /// branch is 6 m long; a live branch ends at a source.
 pub fn fork_scene(trunk_radius_m: f64, trunk_q_pa: f64, branches: &[ForkBranch]) -> Scene {
@@ -112,6 +124,7 @@ pub fn fork_scene_len(
         closed_end: false,
         source: false,
         parent: None,
+        pinch: None,
     });
     for br in branches {
         let d = [libm::cos(br.yaw_rad), libm::sin(br.yaw_rad), 0.0];
@@ -123,6 +136,7 @@ pub fn fork_scene_len(
             closed_end: br.dead_end,
             source: !br.dead_end,
             parent: Some(t),
+            pinch: None,
         });
     }
     s
@@ -154,6 +168,7 @@ pub fn chain_scene(nodes: usize) -> Scene {
             closed_end: false,
             source: i + 1 == n,
             parent,
+            pinch: None,
         });
         if let Some(p) = parent {
             // Side stub from the same node as this leg.
@@ -167,6 +182,7 @@ pub fn chain_scene(nodes: usize) -> Scene {
                 closed_end: true,
                 source: false,
                 parent: Some(p),
+                pinch: None,
             });
         }
         parent = Some(main);
@@ -324,6 +340,16 @@ pub struct Sim {
     pub visited_count: usize,
     /// Contact points reported per frame (at most 32).
     pub wall_points: usize,
+    /// Head radius for pinches, m (0: pinches are not felt and block
+    /// nothing, as before they existed).
+    pub body_radius_m: f64,
+    /// Skin compliance, m: a pinch stops the nose this far past first
+    /// touch, and that stop is a strike.
+    pub compliance_m: f64,
+    /// Steps at which a pinch stopped the head (pressed through the skin).
+    pub strikes: u32,
+    /// Furthest the nose went past a pinch's first touch, m.
+    pub max_press_m: f64,
 }
 
 fn seg_param(s: &Segment, p: [f64; 3]) -> (f64, f64, [f64; 3]) {
@@ -355,7 +381,35 @@ impl Sim {
             visited: [0; 32],
             visited_count: 0,
             wall_points: 8,
+            body_radius_m: 0.0,
+            compliance_m: 0.005,
+            strikes: 0,
+            max_press_m: 0.0,
         }
+    }
+
+    /// How far the nose presses past the first touch of the pinch of the
+    /// segment the head is in, m (negative: not touching), with the pinch
+    /// station and its width; `None` without a pinch there.
+    fn pinch_press(&self, pos: [f64; 3]) -> Option<(f64, [f64; 3], f64)> {
+        if self.body_radius_m <= 0.0 {
+            return None;
+        }
+        let s = self.scene.segs[self.current()];
+        let (at, width) = s.pinch?;
+        let dir = unit(sub(s.b, s.a))?;
+        let along = dot(sub(pos, s.a), dir);
+        let station = add(s.a, scale(dir, at));
+        // The nose cap of radius r first meets a pinch narrower than its
+        // diameter where its sphere reaches the throat's rim.
+        let half = 0.5 * width;
+        let r = self.body_radius_m;
+        let reach = if half < r {
+            libm::sqrt(r * r - half * half)
+        } else {
+            return None;
+        };
+        Some((along - (at - reach), station, width))
     }
 
     fn normal(&mut self) -> f64 {
@@ -496,6 +550,20 @@ impl Sim {
         if s.closed_end && to_node < 0.5 {
             w.end_ahead = true;
         }
+        if let Some((press, station, width)) = self.pinch_press(self.pos)
+            && press >= 0.0
+        {
+            // The cap touches the throat's rim all round: two contacts on
+            // opposite sides, the width between them.
+            let half = 0.5 * width;
+            let p1 = add(station, scale(e1, half));
+            let p2 = add(station, scale(e1, -half));
+            w.push_wall_point(self.rigid.point(p1));
+            w.push_wall_point(self.rigid.point(p2));
+            w.nose_loaded = true;
+            w.nose_point_m = Some(self.rigid.point(station));
+            w.nose_width_m = Some(width);
+        }
         let pose = HeadPose {
             position_m: self.rigid.point(self.pos),
             orientation_wxyz: qmul(self.rigid.q, quat_from_forward(self.fwd)),
@@ -514,7 +582,19 @@ impl Sim {
     pub fn apply(&mut self, c: &Command) {
         let h = self.rigid.inv_vec(c.heading_map);
         if c.speed_m_per_s > 0.0 {
-            self.pos = add(self.pos, scale(h, c.speed_m_per_s * self.dt));
+            let to = add(self.pos, scale(h, c.speed_m_per_s * self.dt));
+            match self.pinch_press(to) {
+                Some((press, _, _)) if press > self.compliance_m => {
+                    // Stopped by the pinch with the skin pressed through.
+                    self.strikes += 1;
+                    self.max_press_m = self.max_press_m.max(press);
+                }
+                Some((press, _, _)) => {
+                    self.max_press_m = self.max_press_m.max(press);
+                    self.pos = to;
+                }
+                None => self.pos = to,
+            }
             if !c.reverse {
                 self.fwd = h;
             }

@@ -101,15 +101,20 @@ fn a_quiet_skin_is_healthy_and_caps_speed_at_the_feel_speed() {
 #[test]
 fn no_skin_report_at_all_still_fails_the_tactile_channel() {
     let mut n = nav();
-    let mut last = None;
+    let mut last: Option<Command> = None;
+    // The head advances as commanded (standing still while commanded
+    // forward would be a stall, and a stall ends in a hold).
+    let mut x = 0.0;
     for k in 0..300 {
         let t = 0.01 * f64::from(k);
-        last = Some(n.step(&Observation {
+        let c = n.step(&Observation {
             time_s: t,
-            pose: Some(pose(0.0)),
+            pose: Some(pose(x)),
             flow: Some(flow([-1.0, 0.0, 0.0], 1.0)),
             wall: None,
-        }));
+        });
+        x += 0.01 * c.speed_m_per_s;
+        last = Some(c);
     }
     let c = last.expect("commands");
     assert_eq!(c.health.tactile, ChannelState::Failed);

@@ -194,6 +194,7 @@ fn tactile_pipeline_does_not_allocate() {
                     module: m,
                     axial_m: 0.12,
                     angle_rad: f64::from(j) * 0.785,
+                    cap_polar_rad: None,
                 });
             }
         }

@@ -29,6 +29,7 @@ fn body() -> Body<3, 16> {
             module: 0,
             axial_m: SENSOR_AXIAL_M,
             angle_rad: f64::from(j) * PI / 4.0,
+            cap_polar_rad: None,
         });
     }
     for j in 0..2 {
@@ -36,6 +37,7 @@ fn body() -> Body<3, 16> {
             module: 1,
             axial_m: 0.1,
             angle_rad: f64::from(j) * PI,
+            cap_polar_rad: None,
         });
     }
     Body::new(c).unwrap()

@@ -21,6 +21,7 @@ pub fn demo_robot(modules: usize) -> RobotSpec {
             axial_m: 0.06,
             angle_deg: 90.0 * f64::from(k),
             measures_normal: k % 2 == 0,
+            cap_polar_deg: None,
         })
         .collect::<Vec<_>>();
     RobotSpec {

@@ -268,7 +268,18 @@ struct RobotDoc {
     ring: Vec<RingDoc>,
     #[serde(default)]
     module: Vec<S<ModuleDoc>>,
+    #[serde(default)]
+    nose_cap: Vec<CapRingDoc>,
     probe: S<ProbeDoc>,
+}
+
+/// A ring of contact sensors on the head's nose cap.
+#[derive(Debug, Deserialize, Clone)]
+#[serde(deny_unknown_fields)]
+struct CapRingDoc {
+    polar_deg: S<f64>,
+    count: S<u32>,
+    first_angle_deg: Option<f64>,
 }
 
 #[derive(Debug, Deserialize, Default)]
@@ -843,6 +854,44 @@ fn ring_sensors(
                 axial_m: ax,
                 angle_deg: a0 + 360.0 * f64::from(i) / f64::from(n),
                 measures_normal: r.measures_normal.unwrap_or(true),
+                cap_polar_deg: None,
+            });
+        }
+    }
+    Ok(out)
+}
+
+/// The nose-cap rings' sensors (appended after the head's skin sensors).
+/// A ring at polar angle 0 is the nose tip: one sensor whatever `count`
+/// says would be the same point, so `count` must be 1 there.
+fn cap_sensors(ctx: &Ctx, rings: &[CapRingDoc]) -> Result<Vec<SensorSpec>, ScenarioError> {
+    let mut out = Vec::new();
+    for (k, r) in rings.iter().enumerate() {
+        let th = *r.polar_deg.get_ref();
+        if !(th.is_finite() && (0.0..=90.0).contains(&th)) {
+            return Err(ctx.err(
+                ScenarioErrorKind::BadValue,
+                r.polar_deg.span(),
+                format!("robot.nose_cap[{k}] polar_deg"),
+                format!("must lie on the nose cap, 0..=90 deg from the head axis, got {th}"),
+            ));
+        }
+        let n = *r.count.get_ref();
+        if n == 0 || (th == 0.0 && n != 1) {
+            return Err(ctx.err(
+                ScenarioErrorKind::BadValue,
+                r.count.span(),
+                format!("robot.nose_cap[{k}] count"),
+                "a ring needs at least one sensor, and the tip (polar_deg 0) exactly one",
+            ));
+        }
+        let a0 = r.first_angle_deg.unwrap_or(0.0);
+        for i in 0..n {
+            out.push(SensorSpec {
+                axial_m: 0.0,
+                angle_deg: a0 + 360.0 * f64::from(i) / f64::from(n),
+                measures_normal: false,
+                cap_polar_deg: Some(th),
             });
         }
     }
@@ -1270,6 +1319,8 @@ impl Scenario {
                 });
             }
         }
+        let caps = cap_sensors(&ctx, &rd.nose_cap)?;
+        modules[0].sensors.extend(caps);
         let pd = doc.robot.get_ref().probe.get_ref();
         let head_radius_m = finite_pos(
             &ctx,

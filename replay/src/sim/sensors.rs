@@ -348,7 +348,20 @@ impl Sensors {
             for (si, s) in m.sensors.iter().enumerate() {
                 let psi = s.angle_deg.to_radians();
                 let (c, sn) = (libm::cos(psi), libm::sin(psi));
-                let p = body.module_point(k, [-s.axial_m, m.radius_m * c, m.radius_m * sn]);
+                // Side skin `(-s, r cos psi, r sin psi)`; nose cap
+                // `r (cos theta, sin theta cos psi, sin theta sin psi)` (the
+                // head ball the motion keeps clear of the walls).
+                let (p, cap_dir) = match s.cap_polar_deg {
+                    Some(th) => {
+                        let (st, ct) = (libm::sin(th.to_radians()), libm::cos(th.to_radians()));
+                        let d = [ct, st * c, st * sn];
+                        (body.module_point(k, vec3::scale(d, m.radius_m)), Some(d))
+                    }
+                    None => (
+                        body.module_point(k, [-s.axial_m, m.radius_m * c, m.radius_m * sn]),
+                        None,
+                    ),
+                };
                 let Some(h) = g.best_hit(p) else { continue };
                 if h.clearance_m >= 0.0 {
                     continue;
@@ -365,7 +378,15 @@ impl Sensors {
                 if dead || force < cn.threshold_n {
                     continue;
                 }
-                let normal = if s.measures_normal {
+                let normal = if let (true, Some(d)) = (s.measures_normal, cap_dir) {
+                    // A cap cell measures along its own axis.
+                    let noisy = [
+                        d[0] + self.rng_contact.gauss(cn.normal_noise_rad),
+                        d[1] + self.rng_contact.gauss(cn.normal_noise_rad),
+                        d[2] + self.rng_contact.gauss(cn.normal_noise_rad),
+                    ];
+                    Some(vec3::unit(noisy).unwrap_or(d))
+                } else if s.measures_normal {
                     let out =
                         vec3::unit(h.offset).unwrap_or_else(|| body.module_dir(k, [0.0, c, sn]));
                     let nm = body.to_module_dir(k, out);
