@@ -119,6 +119,10 @@
 // Operating mode: holding.
 #define UPC_MODE_HOLD 4
 
+// Operating mode: flow too weak for one frame; following the windowed
+// estimate slowly, or dwelling while it integrates.
+#define UPC_MODE_FLOW_WEAK 5
+
 // Channel state: usable.
 #define UPC_CHANNEL_OK 0
 
@@ -127,6 +131,10 @@
 
 // Channel state: not usable.
 #define UPC_CHANNEL_FAILED 2
+
+// Channel state: the probe works but the flow is too weak for one frame
+// (the windowed estimate leads).
+#define UPC_CHANNEL_WEAK 3
 
 // Reason: heading upstream, centred, standoff kept.
 #define UPC_REASON_FOLLOW_UPSTREAM 0
@@ -180,6 +188,18 @@
 // Reason: the frame's time stamp is not trusted.
 #define UPC_REASON_HOLD_CLOCK_UNTRUSTED 16
 
+// Reason: flow too weak for one frame; following the windowed estimate
+// upstream slowly.
+#define UPC_REASON_FOLLOW_WEAK_FLOW 17
+
+// Reason: flow too weak for one frame and not yet resolved; stopped,
+// integrating.
+#define UPC_REASON_DWELL_WEAK_FLOW 18
+
+// Reason: stalled while backing out (the way back is blocked too);
+// holding.
+#define UPC_REASON_HOLD_STALLED 19
+
 // Speed cap: cruise.
 #define UPC_SPEED_CRUISE 0
 
@@ -203,6 +223,9 @@
 
 // Speed cap: stopped.
 #define UPC_SPEED_STOPPED 7
+
+// Speed cap: the nose is touching; creeping while sliding off.
+#define UPC_SPEED_TOUCH 8
 
 // Frame disposition: used in full.
 #define UPC_FRAME_USED 0
@@ -251,6 +274,24 @@
 
 // Back-out cause: every branch of a child junction failed.
 #define UPC_BACK_OUT_CHILD_EXHAUSTED 3
+
+// Back-out cause: stalled with the nose loaded (an obstruction ahead).
+#define UPC_BACK_OUT_OBSTRUCTION 4
+
+// Back-out cause: stalled with nothing felt ahead.
+#define UPC_BACK_OUT_STALLED 5
+
+// Back-out cause: the nose felt the way ahead narrower than the body.
+#define UPC_BACK_OUT_NARROWING_AHEAD 6
+
+// Stall load: the nose was loaded.
+#define UPC_STALL_NOSE_LOADED 0
+
+// Stall load: only the body's sides were touching.
+#define UPC_STALL_SIDES_ONLY 1
+
+// Stall load: nothing was felt.
+#define UPC_STALL_UNFELT 2
 
 // Branch status: not yet decided.
 #define UPC_BRANCH_UNEXPLORED 0
@@ -310,6 +351,12 @@ typedef struct UpcSensor {
   double axial_m;
   // Angle around the module axis from +y toward +z, rad.
   double angle_rad;
+  // The sensor sits on the head's nose cap (`module` must be 0) at
+  // polar angle `cap_polar_rad` from the head axis; `axial_m` is then
+  // unused. False (the zeroed default): on the side skin.
+  bool on_nose_cap;
+  // Polar angle from the head axis, rad, in `[0, pi/2]` (nose cap only).
+  double cap_polar_rad;
 } UpcSensor;
 
 // Navigator configuration: a plain struct, filled by
@@ -583,6 +630,33 @@ typedef struct UpcCommand {
   bool has_branch;
   // Branch comparison.
   struct UpcBranchRecord branch;
+  // `stall_*` are valid: the head did not advance as commanded over the
+  // last window.
+  bool has_stall;
+  // What the skin felt during the stall, `UPC_STALL_*`.
+  uint32_t stall_load;
+  // Stall window length, s.
+  double stall_window_s;
+  // Distance commanded over the window (less what the latency hides), m.
+  double stall_expected_m;
+  // Distance the odometry shows over the window, m.
+  double stall_advanced_m;
+  // `dead_end_*` are valid: a dead end was found this step.
+  bool has_dead_end;
+  // Why the way ahead ended, `UPC_BACK_OUT_*`.
+  uint32_t dead_end_cause;
+  // `dead_end_width_m` is valid.
+  bool has_dead_end_width;
+  // Clear width the nose measured ahead, m.
+  double dead_end_width_m;
+  // `dead_end_junction` is valid (false: no junction known; holding).
+  bool has_dead_end_junction;
+  // The junction backed out to.
+  uint16_t dead_end_junction;
+  // `dead_end_next_branch` is valid (false: nothing left there).
+  bool has_dead_end_next_branch;
+  // The branch to be entered next at that junction.
+  uint8_t dead_end_next_branch;
 } UpcCommand;
 
 // Counters kept by the navigator.
