@@ -80,6 +80,10 @@ fn config(c: &mut Cursor<'_>) -> Option<UpcConfig> {
         cfg.sensors[k].module = c.u16()?;
         cfg.sensors[k].axial_m = c.f64()?;
         cfg.sensors[k].angle_rad = c.f64()?;
+        // NaN: a side-skin sensor; otherwise its nose-cap polar angle.
+        let polar_rad = c.f64()?;
+        cfg.sensors[k].on_nose_cap = !polar_rad.is_nan();
+        cfg.sensors[k].cap_polar_rad = if polar_rad.is_nan() { 0.0 } else { polar_rad };
     }
     cfg.joint_sigma_rad = c.f64()?;
     cfg.probe_layout = c.u32()?;

@@ -13,7 +13,8 @@
 //! Layout (little-endian): the configuration (the fields of
 //! `nav_c::UpcConfig` in declaration order, counted arrays with only the
 //! used entries: `u32` module count, per module length and radius `f64`;
-//! `u32` sensor count, per sensor `u16` module, axial and angle `f64`;
+//! `u32` sensor count, per sensor `u16` module, axial, angle and nose-cap
+//! polar angle `f64` (NaN: a side-skin sensor);
 //! joint sigma `f64`; `u32` layout; cone angle `f64`; `u32` port count,
 //! its normals, 3 `f64` each; port noise, gamma, R, assumed temperature,
 //! cruise speed, minimum dynamic pressure `f64`; section, throat cadence
@@ -105,6 +106,15 @@ fn encode_config(c: &nav_c::UpcConfig, out: &mut Vec<u8>) {
         out.extend_from_slice(&s.module.to_le_bytes());
         f(out, s.axial_m);
         f(out, s.angle_rad);
+        // NaN: a side-skin sensor; otherwise its nose-cap polar angle.
+        f(
+            out,
+            if s.on_nose_cap {
+                s.cap_polar_rad
+            } else {
+                f64::NAN
+            },
+        );
     }
     f(out, c.joint_sigma_rad);
     u(out, c.probe_layout);

@@ -399,10 +399,7 @@ const REASONS: [(ReasonCode, u32); 20] = [
         ReasonCode::FollowWeakFlow,
         crate::UPC_REASON_FOLLOW_WEAK_FLOW,
     ),
-    (
-        ReasonCode::DwellWeakFlow,
-        crate::UPC_REASON_DWELL_WEAK_FLOW,
-    ),
+    (ReasonCode::DwellWeakFlow, crate::UPC_REASON_DWELL_WEAK_FLOW),
     (ReasonCode::HoldStalled, crate::UPC_REASON_HOLD_STALLED),
 ];
 

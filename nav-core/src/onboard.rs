@@ -225,7 +225,7 @@ pub struct OnboardCounters {
 /// let mut body = BodyConfig::uniform(4, ModuleSpec { length_m: 0.3, radius_m: 0.05 });
 /// for k in 0..8u8 {
 ///     let angle_rad = f64::from(k) * core::f64::consts::FRAC_PI_4;
-///     body.push_sensor(SensorSpec { module: 0, axial_m: 0.02, angle_rad });
+///     body.push_sensor(SensorSpec { module: 0, axial_m: 0.02, angle_rad, cap_polar_rad: None });
 /// }
 /// let probe = ProbeLayout::<7>::seven_port(0.7, 2.0).unwrap();
 /// let air = IdealGas::new(1.4, 287.05).unwrap();

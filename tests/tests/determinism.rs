@@ -13,7 +13,7 @@ use std::process::Command;
 /// `libm_digest()` as committed.
 const LIBM_DIGEST: u64 = 0x9a68_5bd4_cbd2_b230;
 /// `core_workload_digest()` as committed.
-const CORE_DIGEST: u64 = 0x3f6e_6f32_04f8_9e61;
+const CORE_DIGEST: u64 = 0x461a_80e6_3a1c_c8e8;
 
 #[test]
 fn twice_in_process() {

@@ -17,7 +17,7 @@ use replay::run::{LiveOptions, build_sim, campaign_job, header_for, run_live, ru
 
 /// Trace digest of `replay run demo:wrens-slot --seed 11 --max-time 3`, as
 /// printed by the release binary (301 steps; all of them `HoldModeSettling`: the mode waits out its recovery dwell for the whole 3 s).
-const WRENS_11_3S_DIGEST: &str = "c1a9e24fae562d29";
+const WRENS_11_3S_DIGEST: &str = "0ba781045f7bbe21";
 
 fn opts(max_time_s: f64) -> LiveOptions {
     LiveOptions {
