@@ -438,7 +438,11 @@ impl<const P: usize, const C: usize> HealthState<P, C> {
         self.flow.usable_sensors = usable;
         let flow_age = time_s - self.flow.last_good_s;
         let weak_age = time_s - self.flow_weak_last_s;
-        let weak = self.flow_was_weak && weak_age <= cfg.flow_timeout_s;
+        // Weak while weak frames keep coming (within the flow timeout) and
+        // no valid frame of its own has come since: a frame that is
+        // neither (no solution, no direction) does not end it.
+        let weak = weak_age <= cfg.flow_timeout_s
+            && (self.flow_was_weak || self.flow_weak_last_s >= self.flow.last_good_s);
         let (fs, fr) = if self.flow.last_good_s == f64::NEG_INFINITY && !weak {
             (ChannelState::Failed, ChannelReason::NoDataYet)
         } else if usable < cfg.min_ports_usable {
@@ -619,5 +623,42 @@ mod tests {
         assert_eq!(h.flow.reason, ChannelReason::Stale);
         assert_eq!(h.tactile.reason, ChannelReason::Stale);
         assert_eq!(h.mode, OperatingMode::Hold);
+    }
+
+    /// Weak air reaches the mode, and frames with no direction at all
+    /// (no solution, or none for another reason) between the weak ones do
+    /// not fail the channel: it stays weak until the flow timeout. Before,
+    /// one such frame in six failed it and put the mode back in hold, so
+    /// the recovery dwell never ran out and the robot never moved.
+    #[test]
+    fn weak_flow_survives_frames_without_a_direction() {
+        let mut h: HealthState<7, 8> = HealthState::new(cfg());
+        let weak = HealthReport {
+            probe_reported: true,
+            flow_valid: false,
+            flow_weak: true,
+            tactile_reported: true,
+            ..HealthReport::default()
+        };
+        let neither = HealthReport {
+            flow_weak: false,
+            ..weak
+        };
+        for i in 0..300 {
+            let r = if i % 6 == 5 { &neither } else { &weak };
+            h.update(r, f64::from(i) * 0.01);
+            assert_eq!(h.flow.state, ChannelState::Weak, "frame {i}");
+        }
+        assert_eq!(h.mode, OperatingMode::FlowWeak);
+        // With nothing weak for longer than the timeout, the channel fails.
+        for i in 300..400 {
+            h.update(&neither, f64::from(i) * 0.01);
+        }
+        assert_eq!(h.flow.state, ChannelState::Failed);
+        // A valid frame ends the weak state at once.
+        let mut h: HealthState<7, 8> = HealthState::new(cfg());
+        h.update(&weak, 0.0);
+        h.update(&good(), 0.01);
+        assert_eq!(h.flow.state, ChannelState::Ok);
     }
 }

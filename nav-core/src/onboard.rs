@@ -717,7 +717,14 @@ impl<
                         sol.dynamic_pressure_pa < q_lost_pa,
                         sol.dynamic_pressure_pa < WINDOW_FEED_FACTOR * q_lost_pa,
                     ),
-                    Direction::Invalid(_) => (false, false),
+                    // No direction for another reason (outside the cone,
+                    // not converged, unresolved) while the fitted dynamic
+                    // pressure is below the lost-flow threshold: the flow
+                    // is too weak for this frame, not the probe broken.
+                    Direction::Invalid(_) => {
+                        let w = sol.dynamic_pressure_pa < q_lost_pa;
+                        (w, w)
+                    }
                 };
                 let mut f = flow_from_solution(
                     &sol,
