@@ -479,9 +479,19 @@ pub struct FlowFilter {
     /// Since when the fused dynamic pressure has been below the lost-flow
     /// threshold.
     pub weak_since_s: Option<f64>,
+    /// When the windowed estimate was last resolved, s.
+    pub window_resolved_s: f64,
     /// Consecutive direction outliers.
     pub outliers: u8,
 }
+
+/// After the windowed estimate loses its resolution, its (still best)
+/// direction is followed for this long before the robot stops to dwell:
+/// the head's own motion in air slower than the crawl makes the window's
+/// sigma wander across the limit, and stopping at every crossing left the
+/// robot switching between following and dwelling frame by frame. Ours,
+/// not from a published source.
+pub const WEAK_FOLLOW_GRACE_S: f64 = 2.0;
 
 /// Variance floor on the diagonal, rad^2 (keeps the innovation covariance
 /// invertible when an observation claims zero uncertainty).
@@ -495,6 +505,7 @@ impl FlowFilter {
         est: FlowEstimate::NONE,
         last_update_s: f64::NEG_INFINITY,
         weak_since_s: None,
+        window_resolved_s: f64::NEG_INFINITY,
         outliers: 0,
     };
 
@@ -606,9 +617,12 @@ impl FlowFilter {
     /// same frames many times over). An unresolved window leaves no
     /// direction, so the decision stage does not steer on it.
     fn follow_window(&mut self, w: &WindowEstimate, t: f64) {
-        let resolved = w.status == WindowStatus::Resolved;
+        if w.status == WindowStatus::Resolved {
+            self.window_resolved_s = t;
+        }
+        let follow = self.window_followable(w, t);
         self.est = FlowEstimate {
-            velocity_dir_map: if resolved { w.velocity_dir_map } else { None },
+            velocity_dir_map: if follow { w.velocity_dir_map } else { None },
             dir_cov: w.dir_cov_map,
             dynamic_pressure_pa: w.dynamic_pressure_pa,
             dynamic_pressure_var_pa2: w.dynamic_pressure_sigma_pa * w.dynamic_pressure_sigma_pa,
@@ -622,6 +636,20 @@ impl FlowFilter {
             }
         } else {
             self.weak_since_s = None;
+        }
+    }
+}
+
+impl FlowFilter {
+    /// The window's direction is followed: resolved now, or resolved within
+    /// [`WEAK_FOLLOW_GRACE_S`] and not yet bounded below usable flow.
+    fn window_followable(&self, w: &WindowEstimate, t: f64) -> bool {
+        match w.status {
+            WindowStatus::Resolved => true,
+            WindowStatus::Integrating | WindowStatus::DwellExpired => {
+                t - self.window_resolved_s <= WEAK_FOLLOW_GRACE_S
+            }
+            _ => false,
         }
     }
 }
@@ -1147,7 +1175,9 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             frame: disp,
         };
         let mut d: Decision = decide(&self.map, &view, &perception, &self.state, &dcfg);
-        let dwell = weak.is_some_and(|w| w.status == WindowStatus::Integrating);
+        let dwell = weak.is_some_and(|w| {
+            w.status == WindowStatus::Integrating && !self.filter.window_followable(w, t)
+        });
         weak_flow_conduct(&mut d, dwell);
         self.apply(&d);
         let mut heading = d.heading_map;
@@ -1324,5 +1354,36 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
                 self.map.tip = Some(tip);
             }
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn window(status: WindowStatus) -> WindowEstimate {
+        WindowEstimate {
+            status,
+            velocity_dir_map: Some([-1.0, 0.0, 0.0]),
+            ..WindowEstimate::EMPTY
+        }
+    }
+
+    /// A window that lost its resolution is still followed for
+    /// `WEAK_FOLLOW_GRACE_S`, and no longer after; still air is never
+    /// followed. The time runs from the last resolved frame.
+    #[test]
+    fn weak_flow_is_followed_through_short_losses_of_resolution() {
+        let mut f = FlowFilter::NEW;
+        assert!(!f.window_followable(&window(WindowStatus::Integrating), 0.0));
+        f.follow_window(&window(WindowStatus::Resolved), 10.0);
+        assert!(f.est.velocity_dir_map.is_some());
+        let lost = window(WindowStatus::Integrating);
+        f.follow_window(&lost, 10.0 + WEAK_FOLLOW_GRACE_S - 0.01);
+        assert!(f.est.velocity_dir_map.is_some(), "dropped within the grace");
+        f.follow_window(&lost, 10.0 + WEAK_FOLLOW_GRACE_S + 0.01);
+        assert!(f.est.velocity_dir_map.is_none(), "followed past the grace");
+        f.follow_window(&window(WindowStatus::Resolved), 20.0);
+        assert!(!f.window_followable(&window(WindowStatus::NoUsableFlow), 20.01));
     }
 }

@@ -15,7 +15,7 @@ use nav_core::decide::{
 };
 use nav_core::frame::HeadPose;
 use nav_core::health::OperatingMode;
-use nav_core::map::{dot, sub};
+use nav_core::map::{Section, dot, sub};
 use nav_core::navigator::{Command, NavConfig, Observation, StandardNavigator};
 use proptest::prelude::*;
 use upcurrent_tests::nav_scene::{ForkBranch, Rigid, Sim, fork_scene, pinch};
@@ -205,6 +205,36 @@ fn a_nose_wide_enough_ahead_is_not_a_narrowing() {
 // ------------------------------------------------------------ closed loop
 
 const RB: f64 = 0.1;
+
+/// A credible section narrower than the required standoff with the skin
+/// squeezed (two touches) and no junction behind: nothing to back out to,
+/// so the robot holds and says why (with a junction behind the same
+/// squeeze is a narrowing the back-out leaves by: `back_out::trigger`).
+#[test]
+fn squeezed_in_a_section_too_narrow_with_no_way_back_holds() {
+    let (mut n, t, x) = driven();
+    let cfg = NavConfig::for_robot(R).decide;
+    let radius_m = R + 0.5 * cfg.standoff_margin_m;
+    assert!(radius_m < cfg.required_standoff_m());
+    let mut w = WallObservation::EMPTY;
+    w.section = Section::Circle {
+        centre_m: [x, 0.0, 0.0],
+        radius_m,
+        centre_sigma_m: 0.002,
+        radius_sigma_m: 0.002,
+    };
+    w.push_wall_point([x, radius_m, 0.0]);
+    w.push_wall_point([x, -radius_m, 0.0]);
+    let c = n.step(&obs(t, x, w));
+    assert_eq!(c.record.reason, ReasonCode::HoldNoSafeStandoff, "{c:?}");
+    assert_eq!(c.speed_m_per_s, 0.0);
+    assert!(c.record.dead_end.is_none());
+    // One touch only is not a squeeze: no hold.
+    let mut one = w;
+    one.wall_point_count = 1;
+    let c = n.step(&obs(t + 0.01, x, one));
+    assert_ne!(c.record.reason, ReasonCode::HoldNoSafeStandoff, "{c:?}");
+}
 
 fn three_way(narrow_q: f64) -> [ForkBranch; 3] {
     [

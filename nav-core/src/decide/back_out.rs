@@ -15,7 +15,7 @@ use crate::map::{
 use super::Step;
 use super::branch::{choose_branch, resolve};
 use super::config::DecideConfig;
-use super::hold::{give_up, hold};
+use super::hold::{give_up, hold, squeezed_narrow_m};
 use super::observe::SOURCE_AHEAD_COS;
 use super::record::{
     BackOutCause, DeadEndRecord, DecideState, Decision, DecisionRecord, HealthView, Perception,
@@ -59,16 +59,20 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
     let out_of_it = cx
         .upstream
         .is_some_and(|u| dot(u, p.forward_map) >= SOURCE_AHEAD_COS);
-    let junction_behind = matches!(state.phase, Phase::Enter { .. })
-        || state
-            .in_junction
-            .is_some_and(|id| map.junctions.get(id).is_some());
+    let junction_behind = junction_behind(map, state);
     // The nose felt the way ahead narrower than the body needs, or the head
     // stalled going forward: the way ahead has ended whatever the flow
     // says (pressing on would press the skin through).
     let nose_narrow = w
         .and_then(|w| w.nose_width_m)
         .filter(|&width| width < cfg.required_width_m());
+    // The skin squeezed in a section narrower than the required standoff,
+    // with a junction behind: the branch narrows below the body here
+    // (without one, `hold::must_hold` holds). Its width is the section's
+    // diameter.
+    let squeezed_narrow = squeezed_narrow_m(cx, pos)
+        .filter(|_| junction_behind)
+        .map(|r| 2.0 * r);
     // A stall ends the way when the nose is loaded (an obstruction ahead).
     // A stall with nothing felt ahead ends it only with a junction behind
     // to back out to: without one it is recorded, and the robot keeps
@@ -102,7 +106,7 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
         } else {
             BackOutCause::Stalled
         })
-    } else if nose_narrow.is_some() {
+    } else if nose_narrow.is_some() || squeezed_narrow.is_some() {
         Some(BackOutCause::NarrowingAhead)
     } else if nose_ahead && !(live && out_of_it && !junction_behind) {
         Some(BackOutCause::Obstruction)
@@ -120,7 +124,7 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
             let mut rec = rec;
             rec.dead_end = Some(DeadEndRecord {
                 cause,
-                width_m: nose_narrow.or(match cause {
+                width_m: nose_narrow.or(squeezed_narrow).or(match cause {
                     BackOutCause::ThroatTooNarrow => {
                         w.and_then(|w| w.throat).map(|t| t.min_clear_diameter_m)
                     }
@@ -133,6 +137,18 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
         }
         None => ControlFlow::Continue(()),
     }
+}
+
+/// A junction is behind the robot to back out to: entering a branch, or
+/// in the region of a junction the map still holds.
+pub(super) fn junction_behind<const S: usize, const W: usize, const JN: usize>(
+    map: &LocalMap<S, W, JN>,
+    state: &DecideState,
+) -> bool {
+    matches!(state.phase, Phase::Enter { .. })
+        || state
+            .in_junction
+            .is_some_and(|id| map.junctions.get(id).is_some())
 }
 
 pub(super) fn flow_usable_or_weak(h: &HealthView) -> bool {

@@ -60,6 +60,7 @@ pub(super) fn must_hold(
     cx: &Step<'_, '_>,
     pos: [f64; 3],
     rec: DecisionRecord,
+    way_back: bool,
 ) -> ControlFlow<Decision> {
     let next = *cx.state;
     let held = |reason| ControlFlow::Break(hold(cx.hold_heading, rec, reason, next));
@@ -84,14 +85,20 @@ pub(super) fn must_hold(
     // A section narrower than the required standoff stops the robot only
     // while the skin is actually squeezed (two or more touches this frame):
     // a remembered fit through a few close points, with nothing touching
-    // now, would otherwise hold it for ever.
-    let squeezed = cx.p.wall.is_some_and(|w| w.wall_point_count >= 2);
-    if let Some((_, radius_m)) =
-        credible_circle(&cx.p.section, pos, cx.along, cx.cfg.robot_radius_m)
-        && radius_m < cx.required
-        && squeezed
-    {
+    // now, would otherwise hold it for ever. With a way back (backing out
+    // already, or a junction behind) it is not a hold but a narrowing the
+    // back-out leaves by (`back_out::trigger`).
+    if squeezed_narrow_m(cx, pos).is_some() && !way_back {
         return held(ReasonCode::HoldNoSafeStandoff);
     }
     ControlFlow::Continue(())
+}
+
+/// The radius of a credible section narrower than the required standoff
+/// while the skin is squeezed (two or more touches this frame), m.
+pub(super) fn squeezed_narrow_m(cx: &Step<'_, '_>, pos: [f64; 3]) -> Option<f64> {
+    let squeezed = cx.p.wall.is_some_and(|w| w.wall_point_count >= 2);
+    credible_circle(&cx.p.section, pos, cx.along, cx.cfg.robot_radius_m)
+        .map(|(_, radius_m)| radius_m)
+        .filter(|r| *r < cx.required && squeezed)
 }

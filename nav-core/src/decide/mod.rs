@@ -240,7 +240,9 @@ fn dispatch<const S: usize, const W: usize, const JN: usize>(
     rec.centre_offset_m = cl.centre_offset_m;
     rec.nearest_wall_m = cl.nearest_wall_m;
 
-    if let ControlFlow::Break(d) = hold::must_hold(cx, pos, rec) {
+    let way_back =
+        matches!(state.phase, Phase::BackOut { .. }) || back_out::junction_behind(map, state);
+    if let ControlFlow::Break(d) = hold::must_hold(cx, pos, rec, way_back) {
         return d;
     }
     if let Phase::BackOut {
