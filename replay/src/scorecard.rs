@@ -13,6 +13,9 @@
 //!   [`crate::sim::policy`]; clear: flows differ by 20 % or more);
 //! - `strike_free`: runs with no strike of either kind (head stopped by a
 //!   wall after a free step, skin pressed past its compliance) over worlds;
+//! - `clean`: runs that did the right thing *and* struck nothing, over
+//!   worlds (a run that reached its source by pressing through a narrowing
+//!   counts as reached, not as clean);
 //! - standoff p5 and p50 (minimum true skin-to-wall distance of each run;
 //!   negative is penetration), time to source p50 and p95, path efficiency
 //!   p50 (true path length over distance travelled, reached runs), held
@@ -39,6 +42,8 @@ pub struct FamilyRow {
     pub clear_calls: u64,
     /// Fraction with no strike.
     pub strike_free: f64,
+    /// Fraction that did the right thing with no strike.
+    pub clean: f64,
     /// Minimum-standoff percentiles 5 and 50, m.
     pub standoff_p5_p50_m: [f64; 2],
     /// Time-to-source percentiles 50 and 95 over reached runs, s.
@@ -125,6 +130,11 @@ fn row<'a>(family: &str, rs: impl Iterator<Item = &'a SeedResult>) -> FamilyRow 
         },
         clear_calls: clear,
         strike_free: frac(rs.iter().filter(|r| r.strike_free()).count()),
+        clean: frac(
+            rs.iter()
+                .filter(|r| r.succeeded() && r.strike_free())
+                .count(),
+        ),
         standoff_p5_p50_m: [pct(&standoff, 5.0), pct(&standoff, 50.0)],
         time_p50_p95_s: [pct(&times, 50.0), pct(&times, 95.0)],
         efficiency_p50: pct(&eff, 50.0),
@@ -160,12 +170,13 @@ pub fn format_table(rows: &[FamilyRow]) -> String {
     let mut o = String::new();
     let _ = writeln!(
         o,
-        "{:<18} {:>6} {:>8} {:>12} {:>11} {:>19} {:>16} {:>10} {:>8}",
+        "{:<18} {:>6} {:>8} {:>12} {:>11} {:>7} {:>19} {:>16} {:>10} {:>8}",
         "family",
         "worlds",
         "reached",
         "wrong/clear",
         "strike-free",
+        "clean",
         "standoff p5/p50 m",
         "to source p50/p95 s",
         "efficiency",
@@ -174,12 +185,13 @@ pub fn format_table(rows: &[FamilyRow]) -> String {
     for r in rows {
         let _ = writeln!(
             o,
-            "{:<18} {:>6} {:>8} {:>12} {:>11} {:>19} {:>16} {:>10} {:>8}",
+            "{:<18} {:>6} {:>8} {:>12} {:>11} {:>7} {:>19} {:>16} {:>10} {:>8}",
             r.family,
             r.worlds,
             pc(r.reached),
             format!("{} of {}", pc(r.wrong), r.clear_calls),
             pc(r.strike_free),
+            pc(r.clean),
             format!(
                 "{}/{}",
                 num(r.standoff_p5_p50_m[0], 3),
@@ -201,12 +213,13 @@ pub fn format_table(rows: &[FamilyRow]) -> String {
 #[must_use]
 pub fn machine_line(r: &FamilyRow) -> String {
     format!(
-        "scorecard family={} worlds={} reached={:.4} wrong={:.4} strike_free={:.4} standoff_p5_m={:.4} efficiency_p50={:.4}",
+        "scorecard family={} worlds={} reached={:.4} wrong={:.4} strike_free={:.4} clean={:.4} standoff_p5_m={:.4} efficiency_p50={:.4}",
         r.family,
         r.worlds,
         r.reached,
         r.wrong,
         r.strike_free,
+        r.clean,
         r.standoff_p5_p50_m[0],
         r.efficiency_p50
     )

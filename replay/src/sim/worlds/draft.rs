@@ -260,7 +260,8 @@ impl Draft {
     }
 
     /// The demos' ring layout on every module: a 10-sensor nose ring on the
-    /// head (see `SCENARIOS.md`), then two staggered rings of 5 per module.
+    /// head (see `SCENARIOS.md`), then two staggered rings of 5 per module;
+    /// and a nose cap of 4 (tip, and 3 at 45 degrees from the head axis).
     fn write_robot(&self, o: &mut String) {
         let r = &self.robot;
         let _ = writeln!(o, "\n[robot]");
@@ -278,6 +279,10 @@ impl Draft {
                 "[[robot.module.ring]]\naxial_m = 0.15\ncount = 5\nfirst_angle_deg = 36.0"
             );
         }
+        // The nose cap: a tip sensor and a ring of 3 at 45 degrees, which
+        // fill the 64 contact slots of the host navigator.
+        let _ = writeln!(o, "\n[[robot.nose_cap]]\npolar_deg = 0.0\ncount = 1");
+        let _ = writeln!(o, "[[robot.nose_cap]]\npolar_deg = 45.0\ncount = 3");
         let _ = writeln!(o, "\n[robot.probe]");
         let _ = writeln!(o, "layout = {}", quoted(r.probe_layout));
         let _ = writeln!(o, "head_radius_m = {:?}", r.head_radius_m);
