@@ -145,6 +145,13 @@ pub struct FlowWindowConfig {
     pub max_dwell_s: f64,
     /// Pose gaps longer than this restart the head-velocity estimate, s.
     pub max_pose_gap_s: f64,
+    /// 1-sigma zero offset of each port's transducer, not calibrated out,
+    /// Pa (>= 0; 0: none). An offset is fixed while the noise is not, so it
+    /// does not average down: at a fixed head attitude the estimate's
+    /// covariance is `(1 + N s_b^2 / s^2)` times the noise-only one (N the
+    /// effective frames, `s` the port noise), the variance of a mean of N
+    /// frames that share one draw of the offsets.
+    pub port_zero_sigma_pa: f64,
 }
 
 impl Default for FlowWindowConfig {
@@ -168,6 +175,7 @@ impl Default for FlowWindowConfig {
             still_q_pa: 0.01,
             max_dwell_s: 20.0,
             max_pose_gap_s: 0.2,
+            port_zero_sigma_pa: 0.0,
         }
     }
 }
@@ -243,6 +251,9 @@ impl FlowWindowConfig {
         }
         if !pos(self.max_pose_gap_s) {
             return bad("max_pose_gap_s", self.max_pose_gap_s);
+        }
+        if !(self.port_zero_sigma_pa.is_finite() && self.port_zero_sigma_pa >= 0.0) {
+            return bad("port_zero_sigma_pa", self.port_zero_sigma_pa);
         }
         Ok(())
     }
@@ -355,6 +366,9 @@ pub struct FlowWindow<const P: usize> {
     reference_forward: Option<[f64; 3]>,
     change_stat: f64,
     unresolved_since_s: Option<f64>,
+    /// Zero-offset variance over noise variance (mean port weight), of
+    /// the last frame with evidence.
+    zero_ratio: f64,
     est: WindowEstimate,
 }
 
@@ -386,6 +400,7 @@ impl<const P: usize> FlowWindow<P> {
             reference_forward: None,
             change_stat: 1.0,
             unresolved_since_s: None,
+            zero_ratio: 0.0,
             est: WindowEstimate::EMPTY,
         })
     }
@@ -544,6 +559,8 @@ impl<const P: usize> FlowWindow<P> {
             used += 1;
         }
         if used >= 2 && sw > 0.0 {
+            let zs = self.cfg.port_zero_sigma_pa;
+            self.zero_ratio = zs * zs * sw / f64::from(used);
             let xm = sx / sw;
             let ym = sy / sw;
             // The sense test: each frame's log-likelihood ratio of the
@@ -615,9 +632,12 @@ impl<const P: usize> FlowWindow<P> {
             return;
         };
         let theta = chol.solve(&self.rhs);
-        let cm = chol.inverse();
+        // The ports' zero offsets do not average down (see
+        // `FlowWindowConfig::port_zero_sigma_pa`).
+        let inflate = 1.0 + self.frames * self.zero_ratio;
+        let cm = chol.inverse() * inflate;
         self.theta = Some(theta);
-        est.flow_chi_square = (theta.transpose() * a * theta).x;
+        est.flow_chi_square = (theta.transpose() * a * theta).x / inflate;
         let m = |i: usize| theta.get(i).copied().unwrap_or(0.0);
         let mtf = Matrix3::new(m(0), m(2), m(3), m(2), m(1), m(4), m(3), m(4), -m(0) - m(1));
         let Some(eig) = nalgebra::SymmetricEigen::try_new(mtf, 1e-15, EIGEN_MAX_ITERATIONS) else {
@@ -998,6 +1018,59 @@ mod tests {
             e.dir_sigma_rad()
         );
         assert!((e.dynamic_pressure_pa - 0.054).abs() < 3.0 * e.dynamic_pressure_sigma_pa + 0.005);
+    }
+
+    /// Ports with fixed zero offsets (a third of the noise, drawn once per
+    /// probe) at a fixed attitude: with the offsets' sigma configured the
+    /// reported direction sigma is honest (errors beyond 3 sigma about as
+    /// rare as for a normal variable); left out, the sigma shrinks with
+    /// the frames while the offsets' error does not, and most probes
+    /// report errors far beyond it. Variance of a mean of correlated
+    /// samples: textbook statistics.
+    #[test]
+    fn port_zero_offsets_are_carried_in_the_covariance() {
+        let sigma = 0.03;
+        let zero_sigma = sigma / 3.0;
+        let layout = seven(sigma);
+        let p = pose([0.0; 3], 0.0);
+        let w = [
+            -0.5 * libm::cos(deg(15.0)),
+            -0.5 * libm::sin(deg(15.0)),
+            0.0,
+        ];
+        let beyond = |configured: f64| {
+            let mut n = 0;
+            for seed in 0..20 {
+                let mut rng = ChaCha8Rng::seed_from_u64(200 + seed);
+                let offsets: [f64; 7] = core::array::from_fn(|_| zero_sigma * normal(&mut rng));
+                let cfg = FlowWindowConfig {
+                    port_zero_sigma_pa: configured,
+                    ..FlowWindowConfig::default()
+                };
+                let mut win = FlowWindow::<7>::new(cfg).unwrap();
+                for i in 0..1500 {
+                    let mut y = ports(&layout, &p, w, [0.0; 3], sigma, &mut rng);
+                    for (v, b) in y.iter_mut().zip(offsets) {
+                        *v += b;
+                    }
+                    win.add(f64::from(i) * 0.01, &y, &layout, &p, RHO, 0)
+                        .unwrap();
+                }
+                let e = win.estimate();
+                let err = angle(e.velocity_dir_map.unwrap(), w);
+                if err > 3.0 * e.dir_sigma_rad() {
+                    n += 1;
+                }
+            }
+            n
+        };
+        let honest = beyond(zero_sigma);
+        let blind = beyond(0.0);
+        assert!(
+            honest <= 2,
+            "{honest} of 20 beyond 3 sigma with the offsets carried"
+        );
+        assert!(blind >= 8, "only {blind} of 20 beyond 3 sigma without them");
     }
 
     #[test]
