@@ -26,8 +26,10 @@
 //!   last section was only a lower bound or more than a quarter of the
 //!   sensors are suspect or failed.
 //! - Mode hysteresis: a move to a *more severe* mode happens at once (safety
-//!   first); a move to a less severe one only after the better candidate has
-//!   held for `mode_recover_s` seconds without interruption.
+//!   first); a move to a less severe one only after the candidates have
+//!   been less severe than the adopted mode for `mode_recover_s` seconds
+//!   without interruption (the candidate may change among better modes
+//!   meanwhile; the one of the last frame is adopted).
 
 /// Why a sensor is not ok.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -303,6 +305,9 @@ pub struct HealthState<const P: usize, const C: usize> {
     pub candidate: OperatingMode,
     /// Since when the candidate has held, s.
     pub candidate_since_s: f64,
+    /// Since when every candidate has been less severe than the adopted
+    /// mode, s (`None`: the last was not).
+    pub improving_since_s: Option<f64>,
     /// The last mode change, if any.
     pub last_transition: Option<ModeTransition>,
     /// Sensors whose condition changed at the last update.
@@ -363,6 +368,7 @@ impl<const P: usize, const C: usize> HealthState<P, C> {
             mode: OperatingMode::Hold,
             candidate: OperatingMode::Hold,
             candidate_since_s: f64::NEG_INFINITY,
+            improving_since_s: None,
             last_transition: None,
             sensor_changes: 0,
             flow_was_weak: false,
@@ -493,18 +499,32 @@ impl<const P: usize, const C: usize> HealthState<P, C> {
             self.candidate_since_s = time_s;
         }
         let cur = self.mode;
+        // The recovery dwell runs while the candidates are better than the
+        // adopted mode, whichever better mode each is: weak air whose
+        // frames alternate between weak and resolved ones gives a candidate
+        // that changes every few frames, and a dwell restarted at each
+        // change held the robot in hold for a whole run.
+        if cand.severity() < cur.severity() {
+            self.improving_since_s.get_or_insert(time_s);
+        } else {
+            self.improving_since_s = None;
+        }
         if cand != cur {
+            let recovered = self
+                .improving_since_s
+                .is_some_and(|since| time_s - since >= cfg.mode_recover_s);
             let reason = if cand.severity() > cur.severity() {
                 Some(TransitionReason::Worsened)
             } else if cand.severity() == cur.severity() {
                 Some(TransitionReason::Lateral)
-            } else if time_s - self.candidate_since_s >= cfg.mode_recover_s {
+            } else if recovered {
                 Some(TransitionReason::RecoveredAfterDwell)
             } else {
                 None
             };
             if let Some(reason) = reason {
                 self.mode = cand;
+                self.improving_since_s = None;
                 self.last_transition = Some(ModeTransition {
                     from: cur,
                     to: cand,
@@ -660,5 +680,51 @@ mod tests {
         h.update(&weak, 0.0);
         h.update(&good(), 0.01);
         assert_eq!(h.flow.state, ChannelState::Ok);
+    }
+
+    /// Out of hold, the dwell runs while the candidates are better than
+    /// hold even when they alternate between better modes every frame
+    /// (weak and resolved air): before, each change restarted it and the
+    /// robot held for a whole run.
+    #[test]
+    fn recovery_dwell_runs_through_changes_among_better_candidates() {
+        let mut h: HealthState<7, 8> = HealthState::new(cfg());
+        let weak = HealthReport {
+            probe_reported: true,
+            flow_valid: false,
+            flow_weak: true,
+            tactile_reported: true,
+            ..HealthReport::default()
+        };
+        let mut t = 0.0;
+        for i in 0..200 {
+            let r = if i % 3 == 0 { good() } else { weak };
+            h.update(&r, t);
+            t += 0.01;
+        }
+        assert_ne!(h.mode, OperatingMode::Hold, "still in hold after 2 s");
+        assert_eq!(
+            h.last_transition.map(|x| x.reason),
+            Some(TransitionReason::RecoveredAfterDwell)
+        );
+        // A worse candidate in between restarts the dwell.
+        let mut h: HealthState<7, 8> = HealthState::new(cfg());
+        h.update(&good(), 0.0);
+        h.update(&good(), 0.6);
+        let dead = HealthReport {
+            port_failed_mask: 0x7f,
+            contact_failed_mask: 0xff,
+            ..good()
+        };
+        h.update(&dead, 0.7);
+        assert_eq!(h.candidate, OperatingMode::Hold);
+        // The sensors recover after two good reports (0.8 and 0.81 s).
+        h.update(&good(), 0.8);
+        h.update(&good(), 0.81);
+        assert_eq!(h.candidate, OperatingMode::Nominal);
+        h.update(&good(), 1.5);
+        assert_eq!(h.mode, OperatingMode::Hold, "the dwell did not restart");
+        h.update(&good(), 1.82);
+        assert_eq!(h.mode, OperatingMode::Nominal);
     }
 }

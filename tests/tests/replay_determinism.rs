@@ -16,8 +16,8 @@ use replay::log::LogWriter;
 use replay::run::{LiveOptions, build_sim, campaign_job, header_for, run_live, run_log};
 
 /// Trace digest of `replay run demo:wrens-slot --seed 11 --max-time 3`, as
-/// printed by the release binary (301 steps; all of them `HoldModeSettling`: the mode waits out its recovery dwell for the whole 3 s).
-const WRENS_11_3S_DIGEST: &str = "0ba781045f7bbe21";
+/// printed by the release binary (301 steps: 100 `HoldModeSettling` while the mode waits out its 1 s recovery dwell, then 201 `FollowUpstream`).
+const WRENS_11_3S_DIGEST: &str = "1ee0f671a4b2b39d";
 
 fn opts(max_time_s: f64) -> LiveOptions {
     LiveOptions {
