@@ -62,7 +62,8 @@ use crate::trust::ClockVerdict;
 /// pressure is below this many times the lost-flow threshold
 /// (`decide.min_dynamic_pressure_pa`), so that it has gathered evidence by
 /// the time the flow falls below the threshold; stronger frames skip it
-/// (about 1.5 us a step on the host).
+/// (about 1.5 us a step on the host). The factor is ours, not from a
+/// published source.
 pub const WINDOW_FEED_FACTOR: f64 = 4.0;
 
 /// Steps between fits with every port while some are excluded as failed

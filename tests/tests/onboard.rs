@@ -372,3 +372,42 @@ fn a_failed_port_stays_out_of_the_fit_until_a_recheck_clears_it() {
         "{after} fits left a port out after it came back"
     );
 }
+
+/// The windowed flow estimate is fed only frames near weak flow
+/// (`nav_core::onboard::WINDOW_FEED_FACTOR` times the lost-flow threshold):
+/// in strong flow it gathers nothing, at twice the threshold it gathers
+/// every frame.
+#[test]
+fn the_flow_window_is_fed_only_near_weak_flow() {
+    let threshold_pa = FrameScene::new(
+        Conduit::straight(RADIUS_M, 40.0),
+        Robot::DEMO,
+        Gait::CENTRED,
+        placement(),
+        0.05,
+        3,
+    )
+    .onboard_config::<8, 48>()
+    .nav
+    .decide
+    .min_dynamic_pressure_pa;
+    let feed_limit_pa = nav_core::onboard::WINDOW_FEED_FACTOR * threshold_pa;
+    for (q_pa, fed) in [(40.0, false), (0.5 * feed_limit_pa, true)] {
+        assert!(q_pa > threshold_pa, "{q_pa} Pa is not above the threshold");
+        let mut scene = FrameScene::new(
+            Conduit::straight(RADIUS_M, q_pa),
+            Robot::DEMO,
+            Gait::CENTRED,
+            placement(),
+            0.05,
+            3,
+        );
+        let mut nav = navigator(&scene);
+        for _ in 0..200 {
+            let f: Frame = scene.next_frame();
+            assert_finite(&nav.step(&f));
+        }
+        let frames = nav.flow_window().estimate().effective_frames;
+        assert_eq!(frames > 0.0, fed, "{q_pa} Pa: {frames} effective frames");
+    }
+}

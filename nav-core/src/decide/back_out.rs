@@ -15,7 +15,7 @@ use crate::map::{
 use super::Step;
 use super::branch::{choose_branch, resolve};
 use super::config::DecideConfig;
-use super::hold::{give_up, hold, squeezed_narrow_m};
+use super::hold::{give_up, hold};
 use super::observe::SOURCE_AHEAD_COS;
 use super::record::{
     BackOutCause, DeadEndRecord, DecideState, Decision, DecisionRecord, HealthView, Perception,
@@ -59,7 +59,7 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
     let out_of_it = cx
         .upstream
         .is_some_and(|u| dot(u, p.forward_map) >= SOURCE_AHEAD_COS);
-    let junction_behind = junction_behind(map, state);
+    let junction_behind = cx.junction_behind;
     // The nose felt the way ahead narrower than the body needs, or the head
     // stalled going forward: the way ahead has ended whatever the flow
     // says (pressing on would press the skin through).
@@ -70,7 +70,8 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
     // with a junction behind: the branch narrows below the body here
     // (without one, `hold::must_hold` holds). Its width is the section's
     // diameter.
-    let squeezed_narrow = squeezed_narrow_m(cx, pos)
+    let squeezed_narrow = cx
+        .squeezed_narrow_m
         .filter(|_| junction_behind)
         .map(|r| 2.0 * r);
     // A stall ends the way when the nose is loaded (an obstruction ahead).

@@ -8,7 +8,9 @@ use crate::health::OperatingMode;
 use crate::map::unit;
 
 use super::Step;
-use super::record::{DecideState, Decision, DecisionRecord, Phase, ReasonCode, SpeedLimit};
+use super::record::{
+    DecideState, Decision, DecisionRecord, Perception, Phase, ReasonCode, SpeedLimit,
+};
 use super::standoff::credible_circle;
 
 /// A held robot keeps its head where it points (`heading`) and remembers
@@ -56,12 +58,7 @@ pub(super) fn give_up(mut rec: DecisionRecord, mut next: DecideState) -> Decisio
 /// The holds that take precedence over every behaviour, once the pose is
 /// known: both channels unhealthy, already given up or at the source, or a
 /// conduit narrower than the required standoff while the skin is squeezed.
-pub(super) fn must_hold(
-    cx: &Step<'_, '_>,
-    pos: [f64; 3],
-    rec: DecisionRecord,
-    way_back: bool,
-) -> ControlFlow<Decision> {
+pub(super) fn must_hold(cx: &Step<'_, '_>, rec: DecisionRecord) -> ControlFlow<Decision> {
     let next = *cx.state;
     let held = |reason| ControlFlow::Break(hold(cx.hold_heading, rec, reason, next));
     if cx.health.mode == OperatingMode::Hold {
@@ -88,7 +85,8 @@ pub(super) fn must_hold(
     // now, would otherwise hold it for ever. With a way back (backing out
     // already, or a junction behind) it is not a hold but a narrowing the
     // back-out leaves by (`back_out::trigger`).
-    if squeezed_narrow_m(cx, pos).is_some() && !way_back {
+    let way_back = matches!(cx.state.phase, Phase::BackOut { .. }) || cx.junction_behind;
+    if cx.squeezed_narrow_m.is_some() && !way_back {
         return held(ReasonCode::HoldNoSafeStandoff);
     }
     ControlFlow::Continue(())
@@ -96,9 +94,15 @@ pub(super) fn must_hold(
 
 /// The radius of a credible section narrower than the required standoff
 /// while the skin is squeezed (two or more touches this frame), m.
-pub(super) fn squeezed_narrow_m(cx: &Step<'_, '_>, pos: [f64; 3]) -> Option<f64> {
-    let squeezed = cx.p.wall.is_some_and(|w| w.wall_point_count >= 2);
-    credible_circle(&cx.p.section, pos, cx.along, cx.cfg.robot_radius_m)
+pub(super) fn squeezed_narrow_m(
+    p: &Perception<'_>,
+    pos: [f64; 3],
+    along: [f64; 3],
+    robot_radius_m: f64,
+    required_m: f64,
+) -> Option<f64> {
+    let squeezed = p.wall.is_some_and(|w| w.wall_point_count >= 2);
+    credible_circle(&p.section, pos, along, robot_radius_m)
         .map(|(_, radius_m)| radius_m)
-        .filter(|r| *r < cx.required && squeezed)
+        .filter(|r| *r < required_m && squeezed)
 }

@@ -128,6 +128,11 @@ pub(super) struct Step<'a, 'p> {
     along: [f64; 3],
     /// Stall found by the progress watch this step.
     stalled: Option<StallRecord>,
+    /// A junction is behind to back out to ([`back_out::junction_behind`]).
+    junction_behind: bool,
+    /// The radius of a credible section narrower than the required
+    /// standoff while the skin is squeezed, m ([`hold::squeezed_narrow_m`]).
+    squeezed_narrow_m: Option<f64>,
 }
 
 impl<'a, 'p> Step<'a, 'p> {
@@ -137,6 +142,7 @@ impl<'a, 'p> Step<'a, 'p> {
         state: &'a DecideState,
         cfg: &'a DecideConfig,
         stalled: Option<StallRecord>,
+        junction_behind: bool,
     ) -> Self {
         let last = unit(state.last_heading_map).unwrap_or([1.0, 0.0, 0.0]);
         let upstream = p.flow.velocity_dir_map.and_then(|v| unit(scale(v, -1.0)));
@@ -162,12 +168,16 @@ impl<'a, 'p> Step<'a, 'p> {
         } else {
             axis.unwrap_or(last)
         };
+        let required = cfg.required_standoff_m();
+        let squeezed_narrow_m = p
+            .position_m
+            .and_then(|pos| hold::squeezed_narrow_m(p, pos, along, cfg.robot_radius_m, required));
         Self {
             health,
             p,
             state,
             cfg,
-            required: cfg.required_standoff_m(),
+            required,
             last,
             upstream,
             flow_usable,
@@ -175,6 +185,8 @@ impl<'a, 'p> Step<'a, 'p> {
             axis,
             along,
             stalled,
+            junction_behind,
+            squeezed_narrow_m,
         }
     }
 
@@ -218,7 +230,8 @@ pub fn decide<const S: usize, const W: usize, const JN: usize>(
     cfg: &DecideConfig,
 ) -> Decision {
     let watch = stall::observe(&state.stall, p, cfg);
-    let cx = Step::new(health, p, state, cfg, watch.stalled);
+    let behind = back_out::junction_behind(map, state);
+    let cx = Step::new(health, p, state, cfg, watch.stalled, behind);
     let mut d = dispatch(map, &cx);
     d.next.stall = stall::after(watch, d.speed_m_per_s, d.reverse);
     d
@@ -240,9 +253,7 @@ fn dispatch<const S: usize, const W: usize, const JN: usize>(
     rec.centre_offset_m = cl.centre_offset_m;
     rec.nearest_wall_m = cl.nearest_wall_m;
 
-    let way_back =
-        matches!(state.phase, Phase::BackOut { .. }) || back_out::junction_behind(map, state);
-    if let ControlFlow::Break(d) = hold::must_hold(cx, pos, rec, way_back) {
+    if let ControlFlow::Break(d) = hold::must_hold(cx, rec) {
         return d;
     }
     if let Phase::BackOut {
