@@ -293,6 +293,16 @@
 // Stall load: nothing was felt.
 #define UPC_STALL_UNFELT 2
 
+// Branch origin: an opening the skin felt.
+#define UPC_ORIGIN_FELT 0
+
+// Branch origin: the branch the flow led into at a junction seen through
+// the flow (width unmeasured).
+#define UPC_ORIGIN_FOLLOWED 1
+
+// Branch origin: a direction a flow turn suggests, nothing measured.
+#define UPC_ORIGIN_GUESSED 2
+
 // Branch status: not yet decided.
 #define UPC_BRANCH_UNEXPLORED 0
 
@@ -539,6 +549,10 @@ typedef struct UpcBranchRecord {
   uint32_t samples[UPC_MAX_BRANCHES];
   // Status per branch after this decision.
   struct UpcBranchStatus status[UPC_MAX_BRANCHES];
+  // The junction was seen through the flow, not felt.
+  bool seen_by_flow;
+  // Where each branch came from, `UPC_ORIGIN_*`.
+  uint32_t origin[UPC_MAX_BRANCHES];
 } UpcBranchRecord;
 
 // One command: what to do, and the decision record saying why. Optional

@@ -21,7 +21,7 @@ use nav_core::decide::{
 use nav_core::frame::{Contact, HeadPose, JointAngles, SensorFrame};
 use nav_core::gas::IdealGas;
 use nav_core::health::{ChannelState, OperatingMode};
-use nav_core::map::{BranchStatus, DeadEndCause, RejectReason};
+use nav_core::map::{BranchOrigin, BranchStatus, DeadEndCause, RejectReason};
 use nav_core::navigator::Command;
 use nav_core::onboard::{OnboardConfig, OnboardError};
 use nav_core::probe::{LayoutError, Port, ProbeError, ProbeLayout};
@@ -403,6 +403,12 @@ const REASONS: [(ReasonCode, u32); 20] = [
     (ReasonCode::HoldStalled, crate::UPC_REASON_HOLD_STALLED),
 ];
 
+const ORIGINS: [(BranchOrigin, u32); 3] = [
+    (BranchOrigin::Felt, crate::UPC_ORIGIN_FELT),
+    (BranchOrigin::Followed, crate::UPC_ORIGIN_FOLLOWED),
+    (BranchOrigin::Guessed, crate::UPC_ORIGIN_GUESSED),
+];
+
 const STALLS: [(StallLoad, u32); 3] = [
     (StallLoad::NoseLoaded, crate::UPC_STALL_NOSE_LOADED),
     (StallLoad::SidesOnly, crate::UPC_STALL_SIDES_ONLY),
@@ -674,6 +680,8 @@ pub(crate) fn command_to_c(c: &Command, out: &mut UpcCommand) {
             width_m: b.width_m,
             samples: b.samples,
             status,
+            seen_by_flow: b.seen_by_flow,
+            origin: b.origin.map(|o| to_code(&ORIGINS, o)),
         };
     }
     if let Some(st) = &r.stall {
@@ -741,6 +749,10 @@ pub fn command_from_c(o: &UpcCommand) -> Result<Command, Fault> {
         for (slot, s) in status.iter_mut().zip(b.status.iter()) {
             *slot = branch_status_from_c(s)?;
         }
+        let mut origin = [BranchOrigin::Felt; UPC_MAX_BRANCHES];
+        for (slot, c) in origin.iter_mut().zip(b.origin.iter()) {
+            *slot = from_code(&ORIGINS, *c, "branch.origin")?;
+        }
         Some(BranchRecord {
             junction: b.junction,
             chosen: b.has_chosen.then_some(b.chosen),
@@ -757,6 +769,8 @@ pub fn command_from_c(o: &UpcCommand) -> Result<Command, Fault> {
             width_m: b.width_m,
             samples: b.samples,
             status,
+            seen_by_flow: b.seen_by_flow,
+            origin,
         })
     } else {
         None

@@ -274,6 +274,14 @@ pub const UPC_STALL_SIDES_ONLY: u32 = 1;
 /// Stall load: nothing was felt.
 pub const UPC_STALL_UNFELT: u32 = 2;
 
+/// Branch origin: an opening the skin felt.
+pub const UPC_ORIGIN_FELT: u32 = 0;
+/// Branch origin: the branch the flow led into at a junction seen through
+/// the flow (width unmeasured).
+pub const UPC_ORIGIN_FOLLOWED: u32 = 1;
+/// Branch origin: a direction a flow turn suggests, nothing measured.
+pub const UPC_ORIGIN_GUESSED: u32 = 2;
+
 /// Branch status: not yet decided.
 pub const UPC_BRANCH_UNEXPLORED: u32 = 0;
 /// Branch status: chosen and entered.
@@ -525,6 +533,10 @@ pub struct UpcBranchRecord {
     pub samples: [u32; UPC_MAX_BRANCHES],
     /// Status per branch after this decision.
     pub status: [UpcBranchStatus; UPC_MAX_BRANCHES],
+    /// The junction was seen through the flow, not felt.
+    pub seen_by_flow: bool,
+    /// Where each branch came from, `UPC_ORIGIN_*`.
+    pub origin: [u32; UPC_MAX_BRANCHES],
 }
 
 /// One command: what to do, and the decision record saying why. Optional

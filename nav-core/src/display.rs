@@ -424,6 +424,7 @@ impl ConfigField {
             Self::HealthTimes => "health (times)",
             Self::FilterNoise => "filter noise",
             Self::Ridge => "ridge",
+            Self::FlowTurn => "flow_turn",
             Self::StationSpacing => "station_spacing_m",
             Self::FrameTiming => "reorder_window_s / pose_timeout_s",
             Self::PoseLimits => "pose_limits",

@@ -45,6 +45,7 @@ pub mod body;
 pub mod decide;
 pub mod digest;
 mod display;
+pub mod flow_turn;
 pub mod flow_window;
 pub mod frame;
 pub mod gas;

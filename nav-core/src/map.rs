@@ -601,7 +601,7 @@ pub struct Station {
 }
 
 impl Station {
-    const EMPTY: Self = Self {
+    pub(crate) const EMPTY: Self = Self {
         seq: 0,
         time_s: 0.0,
         position_m: [0.0; 3],
@@ -810,6 +810,23 @@ impl FlowEvidence {
     }
 }
 
+/// Where a candidate branch came from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize))]
+pub enum BranchOrigin {
+    /// An opening the skin felt in the wall (its width measured or
+    /// bounded).
+    Felt,
+    /// The branch the flow led the robot into at a junction seen through
+    /// the flow ([`crate::flow_turn`]); its width is unmeasured, the robot
+    /// is in it.
+    Followed,
+    /// A direction the flow turn suggests but nothing measured: the mirror
+    /// of the followed branch about the trunk axis, or straight on. Tried
+    /// only after every measured branch, and given up at the first wall.
+    Guessed,
+}
+
 /// One candidate branch of a junction.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Branch {
@@ -829,6 +846,8 @@ pub struct Branch {
     pub evidence: FlowEvidence,
     /// Status.
     pub status: BranchStatus,
+    /// Where the candidate came from.
+    pub origin: BranchOrigin,
 }
 
 impl Branch {
@@ -844,7 +863,15 @@ impl Branch {
             m2: 0.0,
         },
         status: BranchStatus::Unexplored,
+        origin: BranchOrigin::Felt,
     };
+
+    /// No width has been measured or bounded (a branch seen through the
+    /// flow only).
+    #[must_use]
+    pub fn width_unmeasured(&self) -> bool {
+        self.origin != BranchOrigin::Felt && self.width_is_lower_bound && self.clear_width_m <= 0.0
+    }
 
     fn observe_width(&mut self, width_m: f64, lower_bound: bool) {
         if lower_bound {
@@ -893,6 +920,9 @@ pub struct Junction {
     pub branch_count: u8,
     /// The branch chosen, if any.
     pub chosen: Option<u8>,
+    /// Seen through the flow (a turn of the upstream direction in a
+    /// conduit too wide to feel across), not felt.
+    pub seen_by_flow: bool,
 }
 
 impl Junction {
@@ -909,6 +939,7 @@ impl Junction {
         branches: [Branch::EMPTY; MAX_BRANCHES],
         branch_count: 0,
         chosen: None,
+        seen_by_flow: false,
     };
 
     /// A junction with no branches yet, anchored at `position_m` (station
@@ -980,6 +1011,33 @@ impl Junction {
         let b = self.branches.get_mut(k)?;
         b.mouth_m = mouth_m;
         b.observe_width(width_m, lower_bound);
+        u8::try_from(k).ok()
+    }
+}
+
+impl Junction {
+    /// Add a branch seen through the flow (`origin` `Followed` or
+    /// `Guessed`) in direction `direction_map` from `mouth_m`, unless one
+    /// already lies within `merge_cos` of it or the table is full.
+    /// Returns its index.
+    pub fn add_unmeasured(
+        &mut self,
+        direction_map: [f64; 3],
+        mouth_m: [f64; 3],
+        origin: BranchOrigin,
+        merge_cos: f64,
+    ) -> Option<u8> {
+        let dir = unit(direction_map)?;
+        if !finite3(mouth_m) || self.branches().iter().any(|b| dot(b.direction_map, dir) >= merge_cos) {
+            return None;
+        }
+        let k = usize::from(self.branch_count);
+        let slot = self.branches.get_mut(k)?;
+        *slot = Branch::EMPTY;
+        slot.direction_map = dir;
+        slot.mouth_m = mouth_m;
+        slot.origin = origin;
+        self.branch_count = self.branch_count.saturating_add(1);
         u8::try_from(k).ok()
     }
 }

@@ -38,7 +38,7 @@ use crate::flow_window::{WindowEstimate, WindowStatus};
 use crate::frame::HeadPose;
 use crate::health::{HealthConfig, HealthReport, HealthState, OperatingMode};
 use crate::map::{
-    FlowEstimate, Junction, LocalMap, Section, Station, WallIndex, add, disc_area_m2, dist_sq, dot,
+    BranchOrigin, BranchStatus, FlowEstimate, Junction, LocalMap, Section, Station, WallIndex, add, disc_area_m2, dist_sq, dot,
     finite3, head_forward_map, mass_flux_proxy, scale, sub, unit,
 };
 use crate::trust::{ClockConfig, ClockVerdict, FrameClock, PoseLimits};
@@ -175,6 +175,9 @@ pub struct NavConfig {
     pub flow_outlier_reset: u8,
     /// Centring on the dynamic-pressure ridge where no wall is felt.
     pub ridge: crate::ridge::RidgeConfig,
+    /// Junctions seen through the flow where the conduit is too wide to
+    /// feel across.
+    pub flow_turn: crate::flow_turn::FlowTurnConfig,
     /// Distance between stations, m.
     pub station_spacing_m: f64,
     /// Late frames within this are merged (wall points only), s.
@@ -236,6 +239,8 @@ pub enum ConfigField {
     FilterNoise,
     /// `ridge.*` (dynamic-pressure ridge seeking).
     Ridge,
+    /// `flow_turn.*` (junctions seen through the flow).
+    FlowTurn,
     /// `station_spacing_m`.
     StationSpacing,
     /// `reorder_window_s` / `pose_timeout_s` / `clock.*`.
@@ -352,6 +357,7 @@ impl NavConfig {
             flow_outlier_rad: 1.2,
             flow_outlier_reset: 5,
             ridge: crate::ridge::RidgeConfig::for_robot(r),
+            flow_turn: crate::flow_turn::FlowTurnConfig::for_robot(r),
             station_spacing_m: 2.0 * r,
             reorder_window_s: 0.2,
             pose_timeout_s: 0.5,
@@ -451,6 +457,11 @@ impl NavConfig {
             self.flow_outlier_rad > 0.0 && self.flow_outlier_rad <= core::f64::consts::PI,
         )?;
         check(F::Ridge, self.ridge.window_m, self.ridge.is_valid())?;
+        check(
+            F::FlowTurn,
+            self.flow_turn.window_m,
+            self.flow_turn.is_valid(),
+        )?;
         pos(F::StationSpacing, self.station_spacing_m)?;
         nonneg(F::FrameTiming, self.reorder_window_s)?;
         pos(F::FrameTiming, self.pose_timeout_s)?;
@@ -1133,6 +1144,7 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
         }
 
         // Map upkeep.
+        let mut flow_junction = None;
         let retracing = matches!(
             self.state.phase,
             Phase::BackOut { .. } | Phase::GaveUp | Phase::AtSource
@@ -1145,6 +1157,10 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
                 });
                 if far {
                     self.push_station(t, pos, forward, wall.as_ref());
+                    let felt = wall.as_ref().is_some_and(|w| !w.openings().is_empty());
+                    if !felt {
+                        flow_junction = self.flow_turn_upkeep();
+                    }
                 }
                 if let Some(w) = &wall {
                     self.junction_upkeep(t, pos, forward, w);
@@ -1179,6 +1195,12 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
             w.status == WindowStatus::Integrating && !self.filter.window_followable(w, t)
         });
         weak_flow_conduct(&mut d, dwell);
+        if let Some(j) = flow_junction.and_then(|id| self.map.junctions.get(id))
+            && d.record.branch.is_none()
+        {
+            let choice = crate::decide::choose_branch(j, j.chosen, &dcfg);
+            d.record.branch = Some(crate::decide::branch_record(j, &choice, j.chosen, &dcfg));
+        }
         self.apply(&d);
         let mut heading = d.heading_map;
         let mut speed = d.speed_m_per_s;
@@ -1301,6 +1323,68 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
         {
             st.junction = Some(id);
         }
+    }
+
+    /// Record a junction seen through the flow when the upstream direction
+    /// has turned on the path just travelled ([`crate::flow_turn`]): the
+    /// branch followed (entered), and the guessed others. Only while
+    /// following, and not within reach of a junction already held.
+    fn flow_turn_upkeep(&mut self) -> Option<u16> {
+        if !matches!(self.state.phase, Phase::Follow) {
+            return None;
+        }
+        let dcfg = self.cfg.decide;
+        let tip = self.map.tip?;
+        let turn = crate::flow_turn::find_turn(&self.map.stations, tip, &self.cfg.flow_turn)?;
+        // The turn point is the node (every branch's mouth); the anchor the
+        // robot backs out to is on the trunk before it, where each branch
+        // can be headed for through the node.
+        let node = self.map.stations.by_seq(turn.anchor_seq)?.position_m;
+        let anchor_seq = crate::flow_turn::station_before(
+            &self.map.stations,
+            turn.anchor_seq,
+            self.cfg.flow_turn.anchor_back_m,
+        )?;
+        let anchor = *self.map.stations.by_seq(anchor_seq)?;
+        if self
+            .map
+            .junctions
+            .near(anchor.position_m, dcfg.junction_radius_m)
+            .is_some()
+        {
+            return None;
+        }
+        let mut j = Junction::new_at(anchor.position_m, anchor.time_s, anchor.seq, anchor.prev_seq);
+        j.seen_by_flow = true;
+        j.trunk_upstream_map = turn.trunk_upstream_map;
+        j.trunk_radius_m = anchor.section.usable_radius_m().unwrap_or(0.0);
+        j.parent = self.state.in_junction;
+        let followed = j.add_unmeasured(
+            turn.branch_upstream_map,
+            node,
+            BranchOrigin::Followed,
+            1.0,
+        )?;
+        let apart_cos = libm::cos(dcfg.divergence_rad);
+        for g in crate::flow_turn::guessed_directions(
+            turn.trunk_upstream_map,
+            turn.branch_upstream_map,
+        )
+        .into_iter()
+        .flatten()
+        {
+            let _ = j.add_unmeasured(g, node, BranchOrigin::Guessed, apart_cos);
+        }
+        if let Some(b) = j.branch_mut(followed) {
+            b.status = BranchStatus::Entered;
+        }
+        j.chosen = Some(followed);
+        let id = self.map.junctions.open(j)?;
+        if let Some(st) = self.map.stations.by_seq_mut(anchor.seq) {
+            st.junction = Some(id);
+        }
+        self.state.in_junction = Some(id);
+        Some(id)
     }
 
     fn gather_evidence(

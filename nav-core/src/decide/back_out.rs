@@ -302,35 +302,7 @@ pub(super) fn back_out_step<const S: usize, const W: usize, const JN: usize>(
     }
     match target {
         Some((t, true)) if dist_sq(t, pos) <= arrive2 => {
-            // At the junction: take the next-best branch.
-            let mut jj = *j;
-            for b in jj.branches.iter_mut() {
-                if matches!(b.status, BranchStatus::Entered) {
-                    b.status = BranchStatus::DeadEnd(DeadEndCause::Blocked);
-                }
-            }
-            next.phase = Phase::Follow;
-            next.in_junction = j.parent;
-            let cl = Clearance::of_record(&rec);
-            let mut d = resolve(
-                map,
-                &jj,
-                p,
-                pos,
-                &cl,
-                rec,
-                &next,
-                cfg,
-                health,
-                Some(j.anchor_seq),
-            );
-            d.record.dead_end = Some(DeadEndRecord {
-                cause,
-                width_m: None,
-                junction: Some(jid),
-                next_branch: d.record.branch.and_then(|b| b.chosen),
-            });
-            d
+            arrive(map, j, p, pos, cause, rec, &next, cfg, health)
         }
         Some((t, _)) => {
             next.phase = Phase::BackOut {
@@ -356,4 +328,78 @@ pub(super) fn back_out_step<const S: usize, const W: usize, const JN: usize>(
         }
         None => give_up(rec, next),
     }
+}
+
+/// Back at junction `j` (or as near as the way back allows): mark the
+/// entered branch dead and take the next-best one, or pass the failure on.
+#[allow(clippy::too_many_arguments)]
+pub(super) fn arrive<const S: usize, const W: usize, const JN: usize>(
+    map: &LocalMap<S, W, JN>,
+    j: &Junction,
+    p: &Perception<'_>,
+    pos: [f64; 3],
+    cause: BackOutCause,
+    rec: DecisionRecord,
+    state: &DecideState,
+    cfg: &DecideConfig,
+    health: &HealthView,
+) -> Decision {
+    let mut jj = *j;
+    for b in jj.branches.iter_mut() {
+        if matches!(b.status, BranchStatus::Entered) {
+            b.status = BranchStatus::DeadEnd(DeadEndCause::Blocked);
+        }
+    }
+    let mut next = *state;
+    next.phase = Phase::Follow;
+    next.in_junction = j.parent;
+    let cl = Clearance::of_record(&rec);
+    let mut d = resolve(
+        map,
+        &jj,
+        p,
+        pos,
+        &cl,
+        rec,
+        &next,
+        cfg,
+        health,
+        Some(j.anchor_seq),
+    );
+    d.record.dead_end = Some(DeadEndRecord {
+        cause,
+        width_m: None,
+        junction: Some(j.id),
+        next_branch: d.record.branch.and_then(|b| b.chosen),
+    });
+    d
+}
+
+/// Stalled while backing out toward junction `jid`: within
+/// `junction_radius_m` of its anchor the robot is as near as the way back
+/// allows (a sharp corner the tail cannot retrace exactly), so it arrives
+/// there; farther out the way back is blocked and it holds for good.
+#[allow(clippy::too_many_arguments)]
+pub(super) fn stalled_on_the_way_back<const S: usize, const W: usize, const JN: usize>(
+    map: &LocalMap<S, W, JN>,
+    p: &Perception<'_>,
+    pos: [f64; 3],
+    jid: u16,
+    cause: BackOutCause,
+    rec: DecisionRecord,
+    state: &DecideState,
+    cfg: &DecideConfig,
+    health: &HealthView,
+    hold_heading: [f64; 3],
+) -> Decision {
+    if let Some(j) = map.junctions.get(jid)
+        && dist_sq(j.anchor_position_m, pos) <= cfg.junction_radius_m * cfg.junction_radius_m
+    {
+        return arrive(map, j, p, pos, cause, rec, state, cfg, health);
+    }
+    let next = DecideState {
+        phase: Phase::GaveUp,
+        ..*state
+    };
+    hold(hold_heading, rec, ReasonCode::HoldStalled, next)
 }

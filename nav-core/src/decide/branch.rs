@@ -6,7 +6,7 @@
 use core::ops::ControlFlow;
 
 use crate::map::{
-    BranchStatus, Junction, LocalMap, MAX_BRANCHES, RejectReason, add, dist_sq, dot, scale, sub,
+    BranchOrigin, BranchStatus, Junction, LocalMap, MAX_BRANCHES, RejectReason, add, dist_sq, dot, scale, sub,
     unit,
 };
 
@@ -40,7 +40,8 @@ pub(super) fn eligibility(j: &Junction, k: usize, cfg: &DecideConfig) -> Result<
         return Err(BranchStatus::DeadEnd(c));
     }
     let required = cfg.required_width_m();
-    if b.clear_width_m.is_nan() || b.clear_width_m < required {
+    let unmeasured = b.width_unmeasured();
+    if !unmeasured && (b.clear_width_m.is_nan() || b.clear_width_m < required) {
         return Err(BranchStatus::Rejected(RejectReason::TooNarrow {
             width_m: b.clear_width_m,
             required_m: required,
@@ -53,6 +54,11 @@ pub(super) fn eligibility(j: &Junction, k: usize, cfg: &DecideConfig) -> Result<
         }));
     }
     let f = b.evidence.mean_flux_kg_per_s;
+    if unmeasured && b.evidence.samples == 0 {
+        // Seen through the flow only: eligible, ranked below every
+        // branch with measured flow.
+        return Ok(0.0);
+    }
     if b.evidence.samples == 0 || f.is_nan() || f < cfg.min_branch_flux_kg_per_s {
         return Err(BranchStatus::Rejected(RejectReason::NoFlow {
             flux_kg_per_s: f,
@@ -164,7 +170,7 @@ pub fn choose_branch(j: &Junction, incumbent: Option<u8>, cfg: &DecideConfig) ->
     }
 }
 
-pub(super) fn branch_record(
+pub(crate) fn branch_record(
     j: &Junction,
     choice: &BranchChoice,
     incumbent: Option<u8>,
@@ -173,13 +179,19 @@ pub(super) fn branch_record(
     let mut flux = [0.0; MAX_BRANCHES];
     let mut width = [0.0; MAX_BRANCHES];
     let mut samples = [0u32; MAX_BRANCHES];
+    let mut origin = [BranchOrigin::Felt; MAX_BRANCHES];
     let mut sum = 0.0;
     for (k, b) in j.branches().iter().enumerate() {
-        if let (Some(f), Some(w), Some(s)) = (flux.get_mut(k), width.get_mut(k), samples.get_mut(k))
-        {
+        if let (Some(f), Some(w), Some(s), Some(o)) = (
+            flux.get_mut(k),
+            width.get_mut(k),
+            samples.get_mut(k),
+            origin.get_mut(k),
+        ) {
             *f = b.evidence.mean_flux_kg_per_s;
             *w = b.clear_width_m;
             *s = b.evidence.samples;
+            *o = b.origin;
         }
         let came_from = dot(b.direction_map, j.trunk_upstream_map) < cfg.came_from_cos;
         if !came_from && b.evidence.samples > 0 {
@@ -208,6 +220,8 @@ pub(super) fn branch_record(
         width_m: width,
         samples,
         status: choice.status,
+        seen_by_flow: j.seen_by_flow,
+        origin,
     }
 }
 
@@ -221,6 +235,39 @@ pub(super) fn verdict_of(j: &Junction, choice: &BranchChoice, set_tip: Option<u3
     }
 }
 
+/// The heading into branch `k` of `j` ([`entry_heading`]); for a guessed
+/// branch, the upstream flow instead once it points away from every dead
+/// branch of `j` (by more than `divergence_rad`) and not back down the
+/// trunk: the stream of the branch being looked for, whose true axis the
+/// guess only approximates.
+pub(super) fn branch_heading(
+    j: &Junction,
+    k: u8,
+    pos: [f64; 3],
+    p: &Perception<'_>,
+    cfg: &DecideConfig,
+) -> Option<[f64; 3]> {
+    let b = j.branches().get(usize::from(k))?;
+    let along = entry_heading(b, pos, cfg.arrive_m);
+    if b.origin != BranchOrigin::Guessed {
+        return Some(along);
+    }
+    let Some(up) = p.flow.velocity_dir_map.and_then(|v| unit(scale(v, -1.0))) else {
+        return Some(along);
+    };
+    let apart = libm::cos(cfg.divergence_rad);
+    let away = j
+        .branches()
+        .iter()
+        .all(|o| !matches!(o.status, BranchStatus::DeadEnd(_)) || dot(up, o.direction_map) < apart);
+    if away && dot(up, j.trunk_upstream_map) > 0.0 {
+        Some(up)
+    } else {
+        Some(along)
+    }
+}
+
+/// Heading into a branch: toward a point `arrive_m` past the centre of its
 /// mouth until the mouth is passed, then along the branch.
 pub(super) fn entry_heading(b: &crate::map::Branch, pos: [f64; 3], arrive_m: f64) -> [f64; 3] {
     if dot(sub(pos, b.mouth_m), b.direction_map) >= 0.0 {
@@ -341,12 +388,7 @@ pub(super) fn enter_choice(
                 branch: c,
             };
             next.in_junction = Some(j.id);
-            let dir = j
-                .branches()
-                .get(usize::from(c))
-                .map_or(next.last_heading_map, |b| {
-                    entry_heading(b, pos, cfg.arrive_m)
-                });
+            let dir = branch_heading(j, c, pos, p, cfg).unwrap_or(next.last_heading_map);
             let cl = Clearance::of_record(&rec);
             steer(
                 dir,
@@ -457,10 +499,7 @@ pub(super) fn junction_step<const S: usize, const W: usize, const JN: usize>(
                         ));
                     };
                     let switched = c != branch;
-                    let dir = j
-                        .branches()
-                        .get(usize::from(c))
-                        .map_or(cx.last, |b| entry_heading(b, pos, cfg.arrive_m));
+                    let dir = branch_heading(j, c, pos, p, cfg).unwrap_or(cx.last);
                     next.phase = Phase::Enter {
                         junction,
                         branch: c,

@@ -94,6 +94,7 @@ mod standoff;
 
 pub use crate::map::{head_forward_map, probe_to_map};
 pub use branch::{BranchChoice, choose_branch};
+pub(crate) use branch::branch_record;
 pub use config::DecideConfig;
 pub use observe::{
     FlowObservation, MAX_FRAME_WALL_POINTS, Opening, SOURCE_AHEAD_COS, Throat, WALL_BESIDE_M,
@@ -263,13 +264,18 @@ fn dispatch<const S: usize, const W: usize, const JN: usize>(
     } = state.phase
     {
         if cx.stalled.is_some() {
-            // The way back is blocked as well: nothing safe but to hold,
-            // for good.
-            let next = DecideState {
-                phase: Phase::GaveUp,
-                ..*state
-            };
-            return hold::hold(cx.hold_heading, rec, ReasonCode::HoldStalled, next);
+            return back_out::stalled_on_the_way_back(
+                map,
+                p,
+                pos,
+                junction,
+                cause,
+                rec,
+                state,
+                cfg,
+                health,
+                cx.hold_heading,
+            );
         }
         return back_out::back_out_step(
             map, p, pos, junction, cursor_seq, cause, rec, state, cfg, health,

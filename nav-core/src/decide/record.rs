@@ -2,7 +2,7 @@
 //! its outputs (command, record of why, verdict for the map).
 
 use crate::health::{ChannelState, OperatingMode};
-use crate::map::{BranchStatus, DeadEndCause, FlowEstimate, MAX_BRANCHES, Section};
+use crate::map::{BranchOrigin, BranchStatus, DeadEndCause, FlowEstimate, MAX_BRANCHES, Section};
 
 use super::observe::WallObservation;
 
@@ -277,6 +277,10 @@ pub struct BranchRecord {
     pub samples: [u32; MAX_BRANCHES],
     /// Status per branch after this decision (rejection reasons included).
     pub status: [BranchStatus; MAX_BRANCHES],
+    /// The junction was seen through the flow, not felt.
+    pub seen_by_flow: bool,
+    /// Where each branch came from.
+    pub origin: [BranchOrigin; MAX_BRANCHES],
 }
 
 /// Health flags carried with every command.
