@@ -9,6 +9,8 @@
 //! turn and names the station where it happened.
 //!
 //! Rules (checked by the tests below and by `tests/tests/flow_turn.rs`):
+//! - only directions known to better than half the threshold count
+//!   (`uncertain_directions_do_not_count`);
 //! - the turn is the angle between the mean upstream direction over the
 //!   newest `average_m` of travel and the mean over `average_m` of travel
 //!   ending `window_m` back; it must exceed `turn_rad`
@@ -147,7 +149,14 @@ pub fn find_turn<const S: usize>(
         {
             return None;
         }
-        let up = st.flow.velocity_dir_map.and_then(|v| unit(scale(v, -1.0)));
+        // Directions known to better than half the threshold only: weak
+        // air's wandering estimate is not a turn.
+        let sure = libm::sqrt(st.flow.dir_var_rad2().max(0.0)) <= 0.5 * cfg.turn_rad;
+        let up = st
+            .flow
+            .velocity_dir_map
+            .filter(|_| sure)
+            .and_then(|v| unit(scale(v, -1.0)));
         if let Some(u) = up {
             if travelled <= cfg.average_m {
                 if let Some(slot) = newest.get_mut(usize::try_from(new_n).unwrap_or(MAX_WALK)) {
@@ -344,6 +353,21 @@ mod tests {
         }
         let t = find_turn(&ring, tip, &cfg).expect("settled");
         assert!(t.turn_rad > 0.8, "{}", t.turn_rad);
+    }
+
+    #[test]
+    fn uncertain_directions_do_not_count() {
+        let cfg = FlowTurnConfig::for_robot(R);
+        let (mut ring, tip) = path(4.0, 1.5, 0.7);
+        assert!(find_turn(&ring, tip, &cfg).is_some());
+        // Every station's direction sigma just past half the threshold.
+        let var = (0.5 * cfg.turn_rad * 1.01).powi(2) / 3.0;
+        let seqs: std::vec::Vec<u32> = ring.iter().map(|s| s.seq).collect();
+        for s in seqs {
+            let st = ring.by_seq_mut(s).unwrap();
+            st.flow.dir_cov = [[var, 0.0, 0.0], [0.0, var, 0.0], [0.0, 0.0, var]];
+        }
+        assert_eq!(find_turn(&ring, tip, &cfg), None);
     }
 
     #[test]

@@ -54,7 +54,13 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
     // behind, or hold there as arrived when none is. With live flow
     // that does not come out of it, it is a bend or a rock the wall
     // push steers round.
-    let end_ahead = w.is_some_and(|w| w.end_ahead);
+    // In weak air (the flow channel still integrating) a wall ahead is
+    // neither the source nor a dead end: the windowed direction can point
+    // into any wall, and the flow cannot say whether it comes out of it.
+    // The wall push steers along it; the nose and stall rules still end
+    // the way.
+    let weak_air = health.flags.flow == ChannelState::Weak;
+    let end_ahead = w.is_some_and(|w| w.end_ahead) && !weak_air;
     let live = cx.flow_usable && p.flow_weak_since_s.is_none();
     let out_of_it = cx
         .upstream
@@ -70,9 +76,13 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
     // with a junction behind: the branch narrows below the body here
     // (without one, `hold::must_hold` holds). Its width is the section's
     // diameter.
+    // A junction seen only through the flow is a candidate (it may be a
+    // bend): a squeeze or an unfelt stall is not reason enough to go back
+    // to it (a bend's section fits squeeze too).
+    let felt_behind = junction_behind && !flow_seen_junction_behind(map, state);
     let squeezed_narrow = cx
         .squeezed_narrow_m
-        .filter(|_| junction_behind)
+        .filter(|_| felt_behind)
         .map(|r| 2.0 * r);
     // A stall ends the way when the nose is loaded (an obstruction ahead).
     // A stall with nothing felt ahead ends it only with a junction behind
@@ -81,7 +91,7 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
     // does not feel from slip, and holding for good there lost reachable
     // worlds).
     let stall = cx.stalled.filter(|s| {
-        !cx.state.stall.last_reverse && (s.load == StallLoad::NoseLoaded || junction_behind)
+        !cx.state.stall.last_reverse && (s.load == StallLoad::NoseLoaded || felt_behind)
     });
     // A nose touch straight ahead of the travel direction: the way is
     // blocked there (the head cannot slide off it).
@@ -150,6 +160,20 @@ pub(super) fn junction_behind<const S: usize, const W: usize, const JN: usize>(
         || state
             .in_junction
             .is_some_and(|id| map.junctions.get(id).is_some())
+}
+
+/// The junction behind (entered, or last in) was seen through the flow,
+/// not felt.
+fn flow_seen_junction_behind<const S: usize, const W: usize, const JN: usize>(
+    map: &LocalMap<S, W, JN>,
+    state: &DecideState,
+) -> bool {
+    let id = match state.phase {
+        Phase::Enter { junction, .. } => Some(junction),
+        _ => state.in_junction,
+    };
+    id.and_then(|id| map.junctions.get(id))
+        .is_some_and(|j| j.seen_by_flow)
 }
 
 pub(super) fn flow_usable_or_weak(h: &HealthView) -> bool {

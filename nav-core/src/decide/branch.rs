@@ -267,6 +267,41 @@ pub(super) fn branch_heading(
     }
 }
 
+/// Near the junction the robot last entered a branch of (within twice
+/// `junction_radius_m` of its anchor), upstream flow pointing back into one
+/// of its dead branches (within `divergence_rad`) is not followed: the
+/// heading into the branch entered is returned instead. The flow of a
+/// dead branch still pours into the junction and would lead the robot
+/// straight back into it.
+pub(super) fn dead_branch_detour<const S: usize, const W: usize, const JN: usize>(
+    map: &LocalMap<S, W, JN>,
+    state: &DecideState,
+    pos: [f64; 3],
+    upstream: Option<[f64; 3]>,
+    p: &Perception<'_>,
+    cfg: &DecideConfig,
+) -> Option<[f64; 3]> {
+    let up = upstream?;
+    let j = map.junctions.get(state.in_junction?)?;
+    let reach = 2.0 * cfg.junction_radius_m;
+    if dist_sq(pos, j.anchor_position_m) > reach * reach {
+        return None;
+    }
+    let apart = libm::cos(cfg.divergence_rad);
+    let into_dead = j.branches().iter().any(|b| {
+        matches!(b.status, BranchStatus::DeadEnd(_)) && dot(up, b.direction_map) >= apart
+    });
+    if !into_dead {
+        return None;
+    }
+    let c = j.chosen?;
+    let b = j.branches().get(usize::from(c))?;
+    if matches!(b.status, BranchStatus::DeadEnd(_)) {
+        return None;
+    }
+    Some(b.direction_map).filter(|_| p.position_m.is_some())
+}
+
 /// Heading into a branch: toward a point `arrive_m` past the centre of its
 /// mouth until the mouth is passed, then along the branch.
 pub(super) fn entry_heading(b: &crate::map::Branch, pos: [f64; 3], arrive_m: f64) -> [f64; 3] {

@@ -9,15 +9,20 @@ use super::Step;
 use super::record::{DecideState, Decision, DecisionRecord, ReasonCode, SpeedLimit};
 use super::standoff::{Clearance, steer};
 
-/// One step of following.
+/// One step of following; `detour` replaces the upstream heading near a
+/// junction whose dead branch the flow points back into
+/// (`branch::dead_branch_detour`).
 pub(super) fn follow_step(
     cx: &Step<'_, '_>,
     pos: [f64; 3],
     cl: &Clearance,
     rec: DecisionRecord,
     next: DecideState,
+    detour: Option<[f64; 3]>,
 ) -> Decision {
-    let (dir, reason, limit) = if cx.flow_usable {
+    let (dir, reason, limit) = if let (true, Some(d)) = (cx.flow_usable, detour) {
+        (d, ReasonCode::FollowUpstream, SpeedLimit::Junction)
+    } else if cx.flow_usable {
         let r = match cx.health.mode {
             OperatingMode::FlowOnly => ReasonCode::FollowFlowOnly,
             _ => ReasonCode::FollowUpstream,

@@ -286,7 +286,10 @@ fn dispatch<const S: usize, const W: usize, const JN: usize>(
     }
     match branch::junction_step(map, cx, pos, &cl, rec) {
         ControlFlow::Break(d) => d,
-        ControlFlow::Continue(next) => follow::follow_step(cx, pos, &cl, rec, next),
+        ControlFlow::Continue(next) => {
+            let detour = branch::dead_branch_detour(map, &next, pos, cx.upstream, p, cfg);
+            follow::follow_step(cx, pos, &cl, rec, next, detour)
+        }
     }
 }
 
