@@ -120,17 +120,92 @@ pub fn find_turn<const S: usize>(
     tip_seq: u32,
     cfg: &FlowTurnConfig,
 ) -> Option<FlowTurn> {
+    // First walk: the two means.
+    let (mut new_sum, mut new_n) = ([0.0; 3], 0u32);
+    let (mut old_sum, mut old_n) = ([0.0; 3], 0u32);
+    let full = walk(ring, tip_seq, cfg, |zone, _, u| match zone {
+        Zone::Newest => {
+            new_sum = add3(new_sum, u);
+            new_n = new_n.saturating_add(1);
+        }
+        Zone::Oldest => {
+            old_sum = add3(old_sum, u);
+            old_n = old_n.saturating_add(1);
+        }
+        Zone::Middle => {}
+    })?;
+    if !full || new_n < 2 || old_n < 2 {
+        return None;
+    }
+    let new = unit(new_sum)?;
+    let old = unit(old_sum)?;
+    let turn = libm::acos(dot(new, old).clamp(-1.0, 1.0));
+    if turn.is_nan() || turn <= cfg.turn_rad {
+        return None;
+    }
+    // Second walk: still turning (the head is in the junction's mixing
+    // zone) unless the newest stretch agrees within half the threshold, so
+    // that the branch followed is recorded along its own axis; and the
+    // anchor, the oldest middle station of the unbroken run nearer the new
+    // direction than the old.
+    let settle_cos = libm::cos(0.5 * cfg.turn_rad);
+    let mut settled = true;
+    let mut anchor: Option<u32> = None;
+    let mut first_middle: Option<u32> = None;
+    let mut in_run = true;
+    walk(ring, tip_seq, cfg, |zone, seq, u| match zone {
+        Zone::Newest => settled &= dot(u, new) >= settle_cos,
+        Zone::Middle => {
+            first_middle = first_middle.or(Some(seq));
+            if in_run && dot(u, new) >= dot(u, old) {
+                anchor = Some(seq);
+            } else {
+                in_run = false;
+            }
+        }
+        Zone::Oldest => {}
+    })?;
+    if !settled {
+        return None;
+    }
+    // No middle station nearer the new direction: the turn happened at the
+    // oldest station of the new mean's stretch; take the first middle one.
+    let anchor_seq = anchor.or(first_middle)?;
+    Some(FlowTurn {
+        anchor_seq,
+        trunk_upstream_map: old,
+        branch_upstream_map: new,
+        turn_rad: turn,
+    })
+}
+
+/// Which stretch of the window a station lies in.
+#[derive(Clone, Copy)]
+enum Zone {
+    /// The newest `average_m` of travel.
+    Newest,
+    /// Between the two means.
+    Middle,
+    /// The `average_m` of travel ending `window_m` back.
+    Oldest,
+}
+
+/// Walk back from `tip_seq` over at most [`MAX_WALK`] stations, calling
+/// `visit(zone, seq, upstream)` for every station whose direction is known
+/// to better than half the threshold (weak air's wandering estimate is not
+/// a turn). `Some(true)` when the window was covered, `Some(false)` when
+/// the path ran out first; `None` when the window reaches a junction
+/// anchor, a section narrower than `wide_radius_m`, or a station no longer
+/// held.
+fn walk<const S: usize>(
+    ring: &StationRing<S>,
+    tip_seq: u32,
+    cfg: &FlowTurnConfig,
+    mut visit: impl FnMut(Zone, u32, [f64; 3]),
+) -> Option<bool> {
     let mut seq = tip_seq;
     let mut prev_pos: Option<[f64; 3]> = None;
     let mut travelled = 0.0;
-    let (mut new_sum, mut new_n) = ([0.0; 3], 0u32);
-    let (mut old_sum, mut old_n) = ([0.0; 3], 0u32);
-    // The newest stretch's directions, to check it has settled.
-    let mut newest = [[0.0f64; 3]; MAX_WALK];
-    // Stations between the two means, newest first: (seq, upstream).
-    let mut middle = [(0u32, [0.0f64; 3]); MAX_WALK];
-    let mut middle_n = 0usize;
-    let mut full = false;
     for _ in 0..MAX_WALK {
         let st = ring.by_seq(seq)?;
         if let Some(p) = prev_pos {
@@ -138,8 +213,7 @@ pub fn find_turn<const S: usize>(
         }
         prev_pos = Some(st.position_m);
         if travelled > cfg.window_m + cfg.average_m {
-            full = true;
-            break;
+            return Some(true);
         }
         if st.junction.is_some() {
             return None;
@@ -149,8 +223,6 @@ pub fn find_turn<const S: usize>(
         {
             return None;
         }
-        // Directions known to better than half the threshold only: weak
-        // air's wandering estimate is not a turn.
         let sure = libm::sqrt(st.flow.dir_var_rad2().max(0.0)) <= 0.5 * cfg.turn_rad;
         let up = st
             .flow
@@ -158,56 +230,21 @@ pub fn find_turn<const S: usize>(
             .filter(|_| sure)
             .and_then(|v| unit(scale(v, -1.0)));
         if let Some(u) = up {
-            if travelled <= cfg.average_m {
-                if let Some(slot) = newest.get_mut(usize::try_from(new_n).unwrap_or(MAX_WALK)) {
-                    *slot = u;
-                }
-                new_sum = add3(new_sum, u);
-                new_n = new_n.saturating_add(1);
+            let zone = if travelled <= cfg.average_m {
+                Zone::Newest
             } else if travelled >= cfg.window_m {
-                old_sum = add3(old_sum, u);
-                old_n = old_n.saturating_add(1);
-            } else if let Some(slot) = middle.get_mut(middle_n) {
-                *slot = (st.seq, u);
-                middle_n = middle_n.saturating_add(1);
-            }
+                Zone::Oldest
+            } else {
+                Zone::Middle
+            };
+            visit(zone, st.seq, u);
         }
-        seq = st.prev_seq?;
+        let Some(prev) = st.prev_seq else {
+            return Some(false);
+        };
+        seq = prev;
     }
-    if !full || new_n < 2 || old_n < 2 {
-        return None;
-    }
-    let new = unit(new_sum)?;
-    let old = unit(old_sum)?;
-    let turn = libm::acos(dot(new, old).clamp(-1.0, 1.0));
-    if !(turn > cfg.turn_rad) {
-        return None;
-    }
-    // Still turning (the head is in the junction's mixing zone): wait until
-    // the newest stretch agrees within half the threshold, so that the
-    // branch followed is recorded along its own axis.
-    let settle_cos = libm::cos(0.5 * cfg.turn_rad);
-    let n = usize::try_from(new_n).unwrap_or(MAX_WALK);
-    if newest.iter().take(n).any(|&u| dot(u, new) < settle_cos) {
-        return None;
-    }
-    let mut anchor = None;
-    for &(s, u) in middle.iter().take(middle_n) {
-        if dot(u, new) >= dot(u, old) {
-            anchor = Some(s);
-        } else {
-            break;
-        }
-    }
-    // No middle station nearer the new direction: the turn happened at the
-    // oldest station of the new mean's stretch; take the first middle one.
-    let anchor_seq = anchor.or_else(|| middle.first().filter(|_| middle_n > 0).map(|m| m.0))?;
-    Some(FlowTurn {
-        anchor_seq,
-        trunk_upstream_map: old,
-        branch_upstream_map: new,
-        turn_rad: turn,
-    })
+    Some(false)
 }
 
 /// The station `back_m` of travel before station `seq` on the path to it
@@ -322,7 +359,11 @@ mod tests {
         let mut pos = [0.0; 3];
         for k in 0..30 {
             // Straight for 24 stations, then 8 degrees more per station.
-            let a = if k < 24 { 0.0 } else { 0.14 * f64::from(k - 23) };
+            let a = if k < 24 {
+                0.0
+            } else {
+                0.14 * f64::from(k - 23)
+            };
             let dir = [libm::cos(a), libm::sin(a), 0.0];
             let mut st = Station::EMPTY;
             st.position_m = pos;

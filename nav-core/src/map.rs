@@ -1028,7 +1028,12 @@ impl Junction {
         merge_cos: f64,
     ) -> Option<u8> {
         let dir = unit(direction_map)?;
-        if !finite3(mouth_m) || self.branches().iter().any(|b| dot(b.direction_map, dir) >= merge_cos) {
+        if !finite3(mouth_m)
+            || self
+                .branches()
+                .iter()
+                .any(|b| dot(b.direction_map, dir) >= merge_cos)
+        {
             return None;
         }
         let k = usize::from(self.branch_count);

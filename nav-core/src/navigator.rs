@@ -38,8 +38,8 @@ use crate::flow_window::{WindowEstimate, WindowStatus};
 use crate::frame::HeadPose;
 use crate::health::{HealthConfig, HealthReport, HealthState, OperatingMode};
 use crate::map::{
-    BranchOrigin, BranchStatus, FlowEstimate, Junction, LocalMap, Section, Station, WallIndex, add, disc_area_m2, dist_sq, dot,
-    finite3, head_forward_map, mass_flux_proxy, scale, sub, unit,
+    BranchOrigin, BranchStatus, FlowEstimate, Junction, LocalMap, Section, Station, WallIndex, add,
+    disc_area_m2, dist_sq, dot, finite3, head_forward_map, mass_flux_proxy, scale, sub, unit,
 };
 use crate::trust::{ClockConfig, ClockVerdict, FrameClock, PoseLimits};
 
@@ -1354,24 +1354,23 @@ impl<const P: usize, const C: usize, const S: usize, const W: usize, const JN: u
         {
             return None;
         }
-        let mut j = Junction::new_at(anchor.position_m, anchor.time_s, anchor.seq, anchor.prev_seq);
+        let mut j = Junction::new_at(
+            anchor.position_m,
+            anchor.time_s,
+            anchor.seq,
+            anchor.prev_seq,
+        );
         j.seen_by_flow = true;
         j.trunk_upstream_map = turn.trunk_upstream_map;
         j.trunk_radius_m = anchor.section.usable_radius_m().unwrap_or(0.0);
         j.parent = self.state.in_junction;
-        let followed = j.add_unmeasured(
-            turn.branch_upstream_map,
-            node,
-            BranchOrigin::Followed,
-            1.0,
-        )?;
+        let followed =
+            j.add_unmeasured(turn.branch_upstream_map, node, BranchOrigin::Followed, 1.0)?;
         let apart_cos = libm::cos(dcfg.divergence_rad);
-        for g in crate::flow_turn::guessed_directions(
-            turn.trunk_upstream_map,
-            turn.branch_upstream_map,
-        )
-        .into_iter()
-        .flatten()
+        for g in
+            crate::flow_turn::guessed_directions(turn.trunk_upstream_map, turn.branch_upstream_map)
+                .into_iter()
+                .flatten()
         {
             let _ = j.add_unmeasured(g, node, BranchOrigin::Guessed, apart_cos);
         }

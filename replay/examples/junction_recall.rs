@@ -34,7 +34,8 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let family = a.get(1).cloned().unwrap_or_else(|| "fork".into());
     let first: u64 = a.get(2).and_then(|s| s.parse().ok()).unwrap_or(1);
     let count: u64 = a.get(3).and_then(|s| s.parse().ok()).unwrap_or(30);
-    let (mut passed_all, mut true_all, mut false_all, mut metres_all) = (0usize, 0usize, 0usize, 0.0);
+    let (mut passed_all, mut true_all, mut false_all, mut metres_all) =
+        (0usize, 0usize, 0usize, 0.0);
     for seed in first..first + count {
         let mut sim = build_sim(&format!("world:{family}"), Some(seed))?;
         let mut nav = AnyNavigator::new(sim.robot_spec(), &sim.gas_spec())?;
@@ -111,7 +112,11 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         let true_n = found.iter().filter(|&&x| x).count();
         println!(
             "{family}-{seed}: {outcome}, passed {passed_n}, recorded {true_n} of them, {false_n} false, {metres:.1} m{}",
-            if marks.len() >= 8 { " (junction table full)" } else { "" }
+            if marks.len() >= 8 {
+                " (junction table full)"
+            } else {
+                ""
+            }
         );
         passed_all += passed_n;
         true_all += true_n;

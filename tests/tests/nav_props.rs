@@ -492,3 +492,44 @@ proptest! {
         }
     }
 }
+
+/// Branches seen through the flow only (`nav_core::flow_turn`): a guessed
+/// branch has no width and no flow measured, yet is eligible (never
+/// rejected as too narrow or without flow), ranked below every branch with
+/// measured flow, and chosen once nothing measured is left.
+#[test]
+fn guessed_branches_come_after_every_measured_one() {
+    use nav_core::map::BranchOrigin;
+    let cfg = dcfg();
+    let mut j = junction_with(&[0.5], &[3.0], &[cfg.min_branch_samples]);
+    let g = j
+        .add_unmeasured([0.8, -0.6, 0.0], [0.0; 3], BranchOrigin::Guessed, 0.9)
+        .expect("room");
+    // Too close to the felt branch's direction: not added again.
+    let felt = j.branches()[0].direction_map;
+    assert_eq!(
+        j.add_unmeasured(felt, [0.0; 3], BranchOrigin::Guessed, 0.9),
+        None
+    );
+    let c = choose_branch(&j, None, &cfg);
+    assert_eq!(c.chosen, Some(0), "the measured branch first");
+    assert!(
+        matches!(
+            c.status[usize::from(g)],
+            BranchStatus::Rejected(nav_core::map::RejectReason::WeakerFlow { .. })
+        ),
+        "{:?}",
+        c.status[usize::from(g)]
+    );
+    // The measured one dead: the guess is chosen, not rejected for width
+    // or flow.
+    j.branch_mut(0).unwrap().status = BranchStatus::DeadEnd(nav_core::map::DeadEndCause::Blocked);
+    let c = choose_branch(&j, None, &cfg);
+    assert_eq!(c.chosen, Some(g));
+    // A felt branch with no flow measured is still out for want of flow.
+    let k = junction_with(&[0.5], &[0.0], &[0]);
+    assert!(matches!(
+        choose_branch(&k, None, &cfg).status[0],
+        BranchStatus::Rejected(nav_core::map::RejectReason::NoFlow { .. })
+    ));
+}

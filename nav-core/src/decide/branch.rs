@@ -6,8 +6,8 @@
 use core::ops::ControlFlow;
 
 use crate::map::{
-    BranchOrigin, BranchStatus, Junction, LocalMap, MAX_BRANCHES, RejectReason, add, dist_sq, dot, scale, sub,
-    unit,
+    BranchOrigin, BranchStatus, Junction, LocalMap, MAX_BRANCHES, RejectReason, add, dist_sq, dot,
+    scale, sub, unit,
 };
 
 use super::Step;
@@ -288,9 +288,10 @@ pub(super) fn dead_branch_detour<const S: usize, const W: usize, const JN: usize
         return None;
     }
     let apart = libm::cos(cfg.divergence_rad);
-    let into_dead = j.branches().iter().any(|b| {
-        matches!(b.status, BranchStatus::DeadEnd(_)) && dot(up, b.direction_map) >= apart
-    });
+    let into_dead = j
+        .branches()
+        .iter()
+        .any(|b| matches!(b.status, BranchStatus::DeadEnd(_)) && dot(up, b.direction_map) >= apart);
     if !into_dead {
         return None;
     }

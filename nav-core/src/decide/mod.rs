@@ -93,8 +93,8 @@ mod stall;
 mod standoff;
 
 pub use crate::map::{head_forward_map, probe_to_map};
-pub use branch::{BranchChoice, choose_branch};
 pub(crate) use branch::branch_record;
+pub use branch::{BranchChoice, choose_branch};
 pub use config::DecideConfig;
 pub use observe::{
     FlowObservation, MAX_FRAME_WALL_POINTS, Opening, SOURCE_AHEAD_COS, Throat, WALL_BESIDE_M,
