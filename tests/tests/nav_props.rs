@@ -503,7 +503,7 @@ fn guessed_branches_come_after_every_measured_one() {
     let cfg = dcfg();
     let mut j = junction_with(&[0.5], &[3.0], &[cfg.min_branch_samples]);
     let g = j
-        .add_unmeasured([0.8, -0.6, 0.0], [0.0; 3], BranchOrigin::Guessed, 0.9)
+        .add_unmeasured([0.8, 0.6, 0.0], [0.0; 3], BranchOrigin::Guessed, 0.9)
         .expect("room");
     // Too close to the felt branch's direction: not added again.
     let felt = j.branches()[0].direction_map;
