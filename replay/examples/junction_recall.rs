@@ -63,10 +63,12 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         let mut frame = sim.frame().clone();
         let mut last = sim.true_state().head_position_m;
         let mut metres = 0.0;
+        let mut path: Vec<([f64; 3], f64)> = Vec::new();
         let outcome;
         loop {
             let cmd = nav.step(&frame)?;
             let p = sim.true_state().head_position_m;
+            path.push((p, cmd.record.dynamic_pressure_pa));
             metres += dist(p, last);
             last = p;
             for (k, (q, r)) in nodes.iter().enumerate() {
@@ -103,6 +105,27 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                 .filter(|(k, (q, _))| passed[*k] && dist(m.position_m, *q) <= MATCH_M)
                 .map(|(k, _)| k)
                 .next();
+            if std::env::var_os("DIP").is_some() {
+                // Dynamic pressure near the anchor against farther along the
+                // path: the smallest within 1.5 m over the median 2 to 4 m away.
+                let near = path
+                    .iter()
+                    .filter(|(q, _)| dist(*q, m.position_m) <= 1.5)
+                    .map(|x| x.1)
+                    .fold(f64::INFINITY, f64::min);
+                let mut far: Vec<f64> = path
+                    .iter()
+                    .filter(|(q, _)| (2.0..=4.0).contains(&dist(*q, m.position_m)))
+                    .map(|x| x.1)
+                    .collect();
+                far.sort_by(f64::total_cmp);
+                let med = far.get(far.len() / 2).copied().unwrap_or(f64::NAN);
+                println!(
+                    "  dip {} ratio={:.3}",
+                    if hit.is_some() { "true" } else { "false" },
+                    near / med
+                );
+            }
             match hit {
                 Some(k) => found[k] = true,
                 None => false_n += 1,

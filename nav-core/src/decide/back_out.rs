@@ -9,7 +9,7 @@ use core::ops::ControlFlow;
 
 use crate::health::{ChannelState, OperatingMode};
 use crate::map::{
-    BranchStatus, DeadEndCause, Junction, LocalMap, MAX_BRANCHES, dist_sq, dot, sub, unit,
+    BranchStatus, DeadEndCause, Junction, LocalMap, MAX_BRANCHES, dist_sq, dot, scale, sub, unit,
 };
 
 use super::Step;
@@ -54,11 +54,11 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
     // behind, or hold there as arrived when none is. With live flow
     // that does not come out of it, it is a bend or a rock the wall
     // push steers round.
-    // In weak air (the flow channel still integrating) a wall ahead is
-    // neither the source nor a dead end: the windowed direction can point
-    // into any wall, and the flow cannot say whether it comes out of it.
-    // The wall push steers along it; the nose and stall rules still end
-    // the way.
+    // In weak air (the flow channel still integrating) a wall ahead, or
+    // a nose touch straight ahead, is neither the source nor a dead end:
+    // the windowed direction can point into any wall, and the flow cannot
+    // say whether it comes out of it. The wall push steers along it; a
+    // narrowing felt by the nose and a stall still end the way.
     let weak_air = health.flags.flow == ChannelState::Weak;
     let end_ahead = w.is_some_and(|w| w.end_ahead) && !weak_air;
     let live = cx.flow_usable && p.flow_weak_since_s.is_none();
@@ -119,7 +119,7 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
         })
     } else if nose_narrow.is_some() || squeezed_narrow.is_some() {
         Some(BackOutCause::NarrowingAhead)
-    } else if nose_ahead && !(live && out_of_it && !junction_behind) {
+    } else if nose_ahead && !weak_air && !(live && out_of_it && !junction_behind) {
         Some(BackOutCause::Obstruction)
     } else if end_ahead && (!live || out_of_it) {
         Some(BackOutCause::DeadEnd)
@@ -305,12 +305,22 @@ pub(super) fn back_out_step<const S: usize, const W: usize, const JN: usize>(
         return give_up(rec, next);
     };
     let arrive2 = cfg.arrive_m * cfg.arrive_m;
+    // Backing along the trail, a station is reached when the head is
+    // within `arrive_m` of it or has backed past it (it lies ahead of the
+    // head, within the junction's reach): the trail and the stations need
+    // not coincide to the centimetre.
+    let forward = unit(p.forward_map);
+    let reach2 = cfg.junction_radius_m * cfg.junction_radius_m;
+    let reached = |t: [f64; 3]| {
+        let d2 = dist_sq(t, pos);
+        d2 <= arrive2 || (d2 <= reach2 && forward.is_some_and(|f| dot(sub(t, pos), f) > 0.0))
+    };
     let mut cursor = cursor_seq;
     // Advance over every station already reached (bounded by the ring).
     let mut target = map.retrace_target(jid, cursor);
     for _ in 0..S.saturating_add(1) {
         match target {
-            Some((t, false)) if dist_sq(t, pos) <= arrive2 => {
+            Some((t, false)) if reached(t) => {
                 cursor = map
                     .stations
                     .by_seq(cursor)
@@ -325,9 +335,7 @@ pub(super) fn back_out_step<const S: usize, const W: usize, const JN: usize>(
         }
     }
     match target {
-        Some((t, true)) if dist_sq(t, pos) <= arrive2 => {
-            arrive(map, j, p, pos, cause, rec, &next, cfg, health)
-        }
+        Some((t, true)) if reached(t) => arrive(map, j, p, pos, cause, rec, &next, cfg, health),
         Some((t, _)) => {
             next.phase = Phase::BackOut {
                 junction: jid,
@@ -336,7 +344,7 @@ pub(super) fn back_out_step<const S: usize, const W: usize, const JN: usize>(
             };
             let dir = unit(sub(t, pos)).unwrap_or(state.last_heading_map);
             let cl = Clearance::of_record(&rec);
-            steer(
+            let mut d = steer(
                 dir,
                 pos,
                 &cl,
@@ -348,7 +356,18 @@ pub(super) fn back_out_step<const S: usize, const W: usize, const JN: usize>(
                 ReasonCode::BackOut,
                 SpeedLimit::BackOut,
                 None,
-            )
+            );
+            // The stations lie on the body's own trail, so backing out
+            // retraces it: the heading is the head's axis reversed. A
+            // heading toward the next station would, round a sharp corner,
+            // fall within a forward turn of the axis and drive the head
+            // into the wall (a follow-the-leader body backs along its trail
+            // only for headings well behind its axis).
+            if let Some(back) = unit(scale(p.forward_map, -1.0)) {
+                d.heading_map = back;
+                d.next.last_heading_map = back;
+            }
+            d
         }
         None => give_up(rec, next),
     }
