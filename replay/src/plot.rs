@@ -20,6 +20,9 @@ pub struct JunctionMark {
     pub taken: Option<[f64; 3]>,
     /// Rejected branches: direction and a short reason.
     pub rejected: Vec<([f64; 3], String)>,
+    /// Seen through the flow (a turn of the upstream direction), not felt:
+    /// drawn dashed and labelled.
+    pub seen_by_flow: bool,
 }
 
 /// An estimated cross-section: a circle of `radius_m` about `centre_m`,
@@ -353,12 +356,25 @@ fn draw_panel(out: &mut String, scene: &Scene, panel: &Panel) {
     }
     for j in &scene.junctions {
         let (x, y) = panel.to_px(j.position_m);
+        let dash = if j.seen_by_flow {
+            " stroke-dasharray=\"2,2\" class=\"flow-junction\""
+        } else {
+            " class=\"felt-junction\""
+        };
         let _ = writeln!(
             out,
-            "<rect x=\"{:.1}\" y=\"{:.1}\" width=\"8\" height=\"8\" fill=\"none\" stroke=\"#6a1b9a\" stroke-width=\"1.5\"/>",
+            "<rect x=\"{:.1}\" y=\"{:.1}\" width=\"8\" height=\"8\" fill=\"none\" stroke=\"#6a1b9a\" stroke-width=\"1.5\"{dash}/>",
             x - 4.0,
             y - 4.0
         );
+        if j.seen_by_flow {
+            let _ = writeln!(
+                out,
+                "<text x=\"{:.1}\" y=\"{:.1}\" font-family=\"sans-serif\" font-size=\"9\" fill=\"#6a1b9a\">seen by flow</text>",
+                x - 4.0,
+                y - 7.0
+            );
+        }
         if let Some(d) = j.taken {
             arrow(out, panel, j.position_m, d, 2.0 * arrow_len, "#6a1b9a");
         }
@@ -763,6 +779,7 @@ mod tests {
                 position_m: [6.0, 0.0, 0.0],
                 taken: Some([1.0, 0.0, 0.0]),
                 rejected: vec![([0.0, 1.0, 0.0], "too narrow: 0.21 m < 0.30 m".into())],
+                seen_by_flow: false,
             }],
             source_m: Some([10.0, 0.0, 0.0]),
             start_m: Some([0.0, 0.0, 0.0]),
@@ -783,6 +800,21 @@ mod tests {
         // No external references.
         assert!(!svg.contains("href"));
         assert!(!svg.contains("@import"));
+    }
+
+    /// A junction seen through the flow is drawn dashed and labelled, in
+    /// both views; a felt one is not.
+    #[test]
+    fn junctions_seen_by_flow_are_marked_apart() {
+        let felt = render_svg(&scene());
+        assert_eq!(felt.matches("class=\"felt-junction\"").count(), 2);
+        assert!(!felt.contains("seen by flow"));
+        let mut s = scene();
+        s.junctions[0].seen_by_flow = true;
+        let svg = render_svg(&s);
+        assert_eq!(svg.matches("class=\"flow-junction\"").count(), 2);
+        assert_eq!(svg.matches("seen by flow").count(), 2);
+        assert!(svg.contains("stroke-dasharray"));
     }
 
     #[test]

@@ -291,6 +291,13 @@ fn snapshot_of<
             for b in j.branches.iter().take(usize::from(j.branch_count)) {
                 match b.status {
                     nav_core::map::BranchStatus::Entered => taken = Some(b.direction_map),
+                    nav_core::map::BranchStatus::Rejected(_)
+                    | nav_core::map::BranchStatus::Unexplored
+                        if b.origin == nav_core::map::BranchOrigin::Guessed
+                            && b.evidence.samples == 0 =>
+                    {
+                        rejected.push((b.direction_map, "guessed, not tried".to_string()));
+                    }
                     nav_core::map::BranchStatus::Rejected(r) => {
                         rejected.push((b.direction_map, reject_text(&r)));
                     }
@@ -304,6 +311,7 @@ fn snapshot_of<
                 position_m: j.anchor_position_m,
                 taken,
                 rejected,
+                seen_by_flow: j.seen_by_flow,
             }
         })
         .collect();
