@@ -160,12 +160,8 @@ fn backing_out_retraces_the_trail_along_the_reversed_axis() {
     let d = decide(&m, &health(), &p, &backing(jid, tip), &cfg);
     assert_eq!(d.record.reason, ReasonCode::BackOut);
     assert!(d.reverse);
-    for k in 0..3 {
-        assert!(
-            (d.heading_map[k] + fwd[k]).abs() < 1e-12,
-            "{:?}",
-            d.heading_map
-        );
+    for (h, f) in d.heading_map.iter().zip(fwd) {
+        assert!((h + f).abs() < 1e-12, "{:?}", d.heading_map);
     }
 }
 
