@@ -2,8 +2,9 @@
 //! on a hand-made map: stations along an invented bore that turns a
 //! corner, a junction anchored before the corner.
 //!
-//! - backing out retraces the body's own trail: the heading is the head's
-//!   axis reversed, whatever direction the next station lies in;
+//! - backing out retraces the body's own trail: the heading leads to the
+//!   next station while it lies well behind the head, and is the head's
+//!   axis reversed when the station is round a sharp corner;
 //! - a station the head has backed past (it lies ahead of the head, within
 //!   the junction's reach) counts as reached;
 //! - a stall on the way back within the junction's reach is arrival there
@@ -149,19 +150,30 @@ fn stalled(t: f64, pos: [f64; 3]) -> StallWatch {
 fn backing_out_retraces_the_trail_along_the_reversed_axis() {
     let cfg = NavConfig::for_robot(R).decide;
     let (m, jid, tip) = corner_map(1.2);
-    // The head at the leg's end, its axis along the leg; the head turned
-    // on the way in, so its axis is tilted off the leg by 10 degrees. The
-    // next station (tip) is behind it; the reversed axis, not the
-    // direction to the station, is the heading.
-    let a = 10f64.to_radians();
-    let fwd = [-a.sin(), a.cos(), 0.0];
     let pos = [1.2, 1.2 + 0.05, 0.0];
-    let p = perception(10.0, pos, fwd);
-    let d = decide(&m, &health(), &p, &backing(jid, tip), &cfg);
-    assert_eq!(d.record.reason, ReasonCode::BackOut);
-    assert!(d.reverse);
-    for (h, f) in d.heading_map.iter().zip(fwd) {
-        assert!((h + f).abs() < 1e-12, "{:?}", d.heading_map);
+    let heading = |tilt_deg: f64| {
+        let a = tilt_deg.to_radians();
+        let fwd = [-a.sin(), a.cos(), 0.0];
+        let d = decide(
+            &m,
+            &health(),
+            &perception(10.0, pos, fwd),
+            &backing(jid, tip),
+            &cfg,
+        );
+        assert_eq!(d.record.reason, ReasonCode::BackOut);
+        assert!(d.reverse);
+        (d.heading_map, fwd)
+    };
+    // The next station lies straight behind along -y. With the head's axis
+    // 10 degrees off the leg, that is well behind the head: head there.
+    let (h, _) = heading(10.0);
+    assert!(h[1] < -0.999, "{h:?}");
+    // With the axis 60 degrees off (a sharp corner), heading there would
+    // be a forward turn into the wall: straight back along the axis.
+    let (h, fwd) = heading(60.0);
+    for (x, f) in h.iter().zip(fwd) {
+        assert!((x + f).abs() < 1e-12, "{h:?}");
     }
 }
 

@@ -23,6 +23,12 @@ use super::record::{
 };
 use super::standoff::{Clearance, steer};
 
+/// A back-out heading within this cosine of the reversed head axis (50
+/// degrees, so at least 130 degrees from the axis) is unambiguously tail
+/// first; farther round, the reversed axis is used. Our choice, with a
+/// margin over the simulator's 120-degree switch (`replay::sim::body`).
+const TAIL_FIRST_COS: f64 = 0.643;
+
 /// A nose touch within this cosine (30 degrees) of the travel direction
 /// is straight ahead.
 const NOSE_AHEAD_COS: f64 = 0.866;
@@ -358,12 +364,16 @@ pub(super) fn back_out_step<const S: usize, const W: usize, const JN: usize>(
                 None,
             );
             // The stations lie on the body's own trail, so backing out
-            // retraces it: the heading is the head's axis reversed. A
-            // heading toward the next station would, round a sharp corner,
-            // fall within a forward turn of the axis and drive the head
-            // into the wall (a follow-the-leader body backs along its trail
-            // only for headings well behind its axis).
-            if let Some(back) = unit(scale(p.forward_map, -1.0)) {
+            // retraces it. Toward a station well behind the head (more than
+            // `TAIL_FIRST_COS` from its axis) the heading leads there; a
+            // station round a sharp corner would put the heading within a
+            // forward turn of the axis and drive the head into the wall
+            // (a follow-the-leader body backs along its trail only for
+            // headings well behind its axis), so then the heading is the
+            // head's axis reversed: straight back along the trail.
+            if let Some(back) = unit(scale(p.forward_map, -1.0))
+                && dot(d.heading_map, back) < TAIL_FIRST_COS
+            {
                 d.heading_map = back;
                 d.next.last_heading_map = back;
             }
