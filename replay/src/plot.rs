@@ -87,6 +87,68 @@ pub struct TimeSample {
     pub reason: String,
     /// Faults active (scenario faults, or failed ports and sensors).
     pub faults_active: u32,
+    /// The junction record of this step's decision, summarised
+    /// ([`junction_label`]), when there is one.
+    pub junction: Option<String>,
+}
+
+/// One line for a junction record in the time strip: the junction, how it
+/// was found, the branch taken and each other branch's status (`statuses`:
+/// short names such as "entered", "dead end", "rejected: weaker flow").
+#[must_use]
+pub fn junction_label(
+    junction: u64,
+    seen_by_flow: bool,
+    chosen: Option<u64>,
+    statuses: &[String],
+) -> String {
+    let how = if seen_by_flow { "seen by flow" } else { "felt" };
+    let mut out = format!("junction {junction} ({how})");
+    match chosen {
+        Some(c) => out.push_str(&format!(": branch {c} taken")),
+        None => out.push_str(": no branch taken"),
+    }
+    for (k, st) in statuses.iter().enumerate() {
+        if Some(k as u64) != chosen {
+            out.push_str(&format!("; branch {k} {st}"));
+        }
+    }
+    out
+}
+
+/// The short name of a branch status as the trace writes it (a string, or
+/// an object whose one key is the variant).
+fn status_name(v: &serde_json::Value) -> String {
+    let key = match v {
+        serde_json::Value::String(s) => s.clone(),
+        serde_json::Value::Object(m) => {
+            let k = m.keys().next().cloned().unwrap_or_default();
+            match m.get(&k) {
+                Some(serde_json::Value::Object(r)) => {
+                    let why = r.keys().next().cloned().unwrap_or_default();
+                    format!("{k}: {why}")
+                }
+                Some(serde_json::Value::String(c)) => format!("{k}: {c}"),
+                _ => k,
+            }
+        }
+        _ => "?".to_string(),
+    };
+    words(&key)
+}
+
+/// `DeadEnd: Blocked` -> `dead end: blocked`: CamelCase names as words.
+fn words(s: &str) -> String {
+    let mut out = String::new();
+    let mut prev_lower = false;
+    for ch in s.chars() {
+        if ch.is_uppercase() && prev_lower {
+            out.push(' ');
+        }
+        prev_lower = ch.is_lowercase();
+        out.extend(ch.to_lowercase());
+    }
+    out
 }
 
 /// Everything a picture shows.
@@ -516,9 +578,10 @@ fn draw_timeline(out: &mut String, scene: &Scene, x0: f64, y0: f64, w: f64) -> f
         y += STRIP_H + 6.0;
     }
     type Band = (&'static str, fn(&TimeSample) -> Option<String>);
-    let bands: [Band; 3] = [
+    let bands: [Band; 4] = [
         ("mode", |s| Some(s.mode.clone())),
         ("reason", |s| Some(s.reason.clone())),
+        ("junction", |s| s.junction.clone()),
         ("faults active", |s| {
             (s.faults_active > 0).then(|| format!("{} active", s.faults_active))
         }),
@@ -542,6 +605,8 @@ fn draw_timeline(out: &mut String, scene: &Scene, x0: f64, y0: f64, w: f64) -> f
                 let xb = tx(t.get(e).map_or(t1, |s| s.time_s));
                 let colour = if name == "faults active" {
                     "#c0392b"
+                } else if name == "junction" {
+                    "#6a1b9a"
                 } else {
                     colour_of(&v)
                 };
@@ -557,7 +622,7 @@ fn draw_timeline(out: &mut String, scene: &Scene, x0: f64, y0: f64, w: f64) -> f
             }
             k = e;
         }
-        if name != "faults active" {
+        if name != "faults active" && name != "junction" {
             // A key under the band: each name in its colour.
             let mut kx = left;
             y += BAND_H + 2.0;
@@ -722,6 +787,46 @@ pub fn scene_of_trace<R: std::io::BufRead>(
             mode: c["mode"].as_str().unwrap_or("?").to_string(),
             reason: c["record"]["reason"].as_str().unwrap_or("?").to_string(),
             faults_active: failed,
+            junction: c["record"]["branch"].as_object().map(|b| {
+                let n = b
+                    .get("count")
+                    .and_then(serde_json::Value::as_u64)
+                    .unwrap_or(0);
+                let field = |k: &str| {
+                    b.get(k)
+                        .and_then(serde_json::Value::as_array)
+                        .cloned()
+                        .unwrap_or_default()
+                };
+                let (origin, samples) = (field("origin"), field("samples"));
+                let statuses: Vec<String> = field("status")
+                    .iter()
+                    .enumerate()
+                    .take(n as usize)
+                    .map(|(k, st)| {
+                        let guessed = origin.get(k).and_then(serde_json::Value::as_str)
+                            == Some("Guessed")
+                            && samples.get(k).and_then(serde_json::Value::as_u64) == Some(0);
+                        let open = matches!(st.as_str(), Some("Unexplored"))
+                            || st.get("Rejected").is_some();
+                        if guessed && open {
+                            "guessed, not tried".to_string()
+                        } else {
+                            status_name(st)
+                        }
+                    })
+                    .collect();
+                junction_label(
+                    b.get("junction")
+                        .and_then(serde_json::Value::as_u64)
+                        .unwrap_or(0),
+                    b.get("seen_by_flow")
+                        .and_then(serde_json::Value::as_bool)
+                        .unwrap_or(false),
+                    b.get("chosen").and_then(serde_json::Value::as_u64),
+                    &statuses,
+                )
+            }),
         });
     }
     if scene.timeline.is_empty() {
@@ -760,6 +865,9 @@ mod tests {
                     }
                     .into(),
                     faults_active: u32::from((20..30).contains(&k)),
+                    junction: (30..34).contains(&k).then(|| {
+                        junction_label(2, true, Some(0), &["entered".into(), "guessed".into()])
+                    }),
                 })
                 .collect(),
             centrelines: vec![vec![[0.0, 0.0, 0.0], [10.0, 0.0, 0.0]]],
@@ -802,18 +910,46 @@ mod tests {
         assert!(!svg.contains("@import"));
     }
 
+    /// The junction records of the decisions show in their own band of the
+    /// time strip, each with its summary as the title.
+    #[test]
+    fn trace_statuses_read_as_words() {
+        let v: serde_json::Value =
+            serde_json::from_str(r#"[{"DeadEnd":"Blocked"},"Entered",{"Rejected":{"WeakerFlow":{"flux_kg_per_s":0.1}}}]"#)
+                .unwrap();
+        let names: Vec<String> = v.as_array().unwrap().iter().map(status_name).collect();
+        assert_eq!(
+            names,
+            ["dead end: blocked", "entered", "rejected: weaker flow"]
+        );
+    }
+
+    #[test]
+    fn junction_records_show_in_the_time_strip() {
+        let svg = render_svg(&scene());
+        assert!(svg.contains(">junction</text>"), "no junction band");
+        assert!(svg.contains(
+            "<title>junction 2 (seen by flow): branch 0 taken; branch 1 guessed</title>"
+        ));
+        let mut s = scene();
+        for t in &mut s.timeline {
+            t.junction = None;
+        }
+        assert!(!render_svg(&s).contains("junction 2"));
+    }
+
     /// A junction seen through the flow is drawn dashed and labelled, in
     /// both views; a felt one is not.
     #[test]
     fn junctions_seen_by_flow_are_marked_apart() {
         let felt = render_svg(&scene());
         assert_eq!(felt.matches("class=\"felt-junction\"").count(), 2);
-        assert!(!felt.contains("seen by flow"));
+        assert!(!felt.contains(">seen by flow</text>"));
         let mut s = scene();
         s.junctions[0].seen_by_flow = true;
         let svg = render_svg(&s);
         assert_eq!(svg.matches("class=\"flow-junction\"").count(), 2);
-        assert_eq!(svg.matches("seen by flow").count(), 2);
+        assert_eq!(svg.matches(">seen by flow</text>").count(), 2);
         assert!(svg.contains("stroke-dasharray"));
     }
 

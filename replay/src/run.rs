@@ -740,6 +740,36 @@ fn add_to_scene(
         mode: format!("{:?}", cmd.mode),
         reason: format!("{:?}", cmd.record.reason),
         faults_active,
+        junction: cmd.record.branch.map(|b| {
+            let statuses: Vec<String> = b
+                .status
+                .iter()
+                .zip(b.origin.iter().zip(b.samples.iter()))
+                .take(usize::from(b.count))
+                .map(|(s, (o, n))| match s {
+                    nav_core::map::BranchStatus::Rejected(_)
+                    | nav_core::map::BranchStatus::Unexplored
+                        if *o == nav_core::map::BranchOrigin::Guessed && *n == 0 =>
+                    {
+                        "guessed, not tried".to_string()
+                    }
+                    nav_core::map::BranchStatus::Unexplored => "unexplored".to_string(),
+                    nav_core::map::BranchStatus::Entered => "entered".to_string(),
+                    nav_core::map::BranchStatus::Rejected(r) => {
+                        format!("rejected: {}", reject_text(r))
+                    }
+                    nav_core::map::BranchStatus::DeadEnd(c) => {
+                        format!("dead end: {c:?}").to_lowercase()
+                    }
+                })
+                .collect();
+            crate::plot::junction_label(
+                u64::from(b.junction),
+                b.seen_by_flow,
+                b.chosen.map(u64::from),
+                &statuses,
+            )
+        }),
     });
 }
 
