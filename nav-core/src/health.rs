@@ -645,6 +645,18 @@ mod tests {
         assert_eq!(h.mode, OperatingMode::Hold);
     }
 
+    /// A probe report of weak air (no resolved direction yet), the skin
+    /// reporting.
+    fn weak_report() -> HealthReport {
+        HealthReport {
+            probe_reported: true,
+            flow_valid: false,
+            flow_weak: true,
+            tactile_reported: true,
+            ..HealthReport::default()
+        }
+    }
+
     /// Weak air reaches the mode, and frames with no direction at all
     /// (no solution, or none for another reason) between the weak ones do
     /// not fail the channel: it stays weak until the flow timeout. Before,
@@ -653,13 +665,7 @@ mod tests {
     #[test]
     fn weak_flow_survives_frames_without_a_direction() {
         let mut h: HealthState<7, 8> = HealthState::new(cfg());
-        let weak = HealthReport {
-            probe_reported: true,
-            flow_valid: false,
-            flow_weak: true,
-            tactile_reported: true,
-            ..HealthReport::default()
-        };
+        let weak = weak_report();
         let neither = HealthReport {
             flow_weak: false,
             ..weak
@@ -689,13 +695,7 @@ mod tests {
     #[test]
     fn recovery_dwell_runs_through_changes_among_better_candidates() {
         let mut h: HealthState<7, 8> = HealthState::new(cfg());
-        let weak = HealthReport {
-            probe_reported: true,
-            flow_valid: false,
-            flow_weak: true,
-            tactile_reported: true,
-            ..HealthReport::default()
-        };
+        let weak = weak_report();
         let mut t = 0.0;
         for i in 0..200 {
             let r = if i % 3 == 0 { good() } else { weak };

@@ -289,22 +289,12 @@ fn snapshot_of<
             let mut taken = None;
             let mut rejected = Vec::new();
             for b in j.branches.iter().take(usize::from(j.branch_count)) {
+                let text = branch_status_text(&b.status, b.origin, b.evidence.samples);
                 match b.status {
                     nav_core::map::BranchStatus::Entered => taken = Some(b.direction_map),
-                    nav_core::map::BranchStatus::Rejected(_)
-                    | nav_core::map::BranchStatus::Unexplored
-                        if b.origin == nav_core::map::BranchOrigin::Guessed
-                            && b.evidence.samples == 0 =>
-                    {
-                        rejected.push((b.direction_map, "guessed, not tried".to_string()));
-                    }
-                    nav_core::map::BranchStatus::Rejected(r) => {
-                        rejected.push((b.direction_map, reject_text(&r)));
-                    }
-                    nav_core::map::BranchStatus::DeadEnd(c) => {
-                        rejected.push((b.direction_map, format!("dead end ({c:?})")));
-                    }
-                    nav_core::map::BranchStatus::Unexplored => {}
+                    nav_core::map::BranchStatus::Unexplored
+                        if b.origin != nav_core::map::BranchOrigin::Guessed => {}
+                    _ => rejected.push((b.direction_map, text)),
                 }
             }
             crate::plot::JunctionMark {
@@ -327,6 +317,28 @@ fn snapshot_of<
         flow_dir,
         junctions,
         wall_points,
+    }
+}
+
+/// A branch's status as plots say it: a guessed branch not yet tried says
+/// so (its "weaker flow" of 0 kg/s is only its rank), the others their
+/// status and reason.
+fn branch_status_text(
+    s: &nav_core::map::BranchStatus,
+    origin: nav_core::map::BranchOrigin,
+    samples: u32,
+) -> String {
+    use nav_core::map::BranchStatus as B;
+    match s {
+        B::Rejected(_) | B::Unexplored
+            if origin == nav_core::map::BranchOrigin::Guessed && samples == 0 =>
+        {
+            "guessed, not tried".to_string()
+        }
+        B::Unexplored => "unexplored".to_string(),
+        B::Entered => "entered".to_string(),
+        B::Rejected(r) => format!("rejected: {}", reject_text(r)),
+        B::DeadEnd(c) => format!("dead end: {c:?}").to_lowercase(),
     }
 }
 
@@ -746,22 +758,7 @@ fn add_to_scene(
                 .iter()
                 .zip(b.origin.iter().zip(b.samples.iter()))
                 .take(usize::from(b.count))
-                .map(|(s, (o, n))| match s {
-                    nav_core::map::BranchStatus::Rejected(_)
-                    | nav_core::map::BranchStatus::Unexplored
-                        if *o == nav_core::map::BranchOrigin::Guessed && *n == 0 =>
-                    {
-                        "guessed, not tried".to_string()
-                    }
-                    nav_core::map::BranchStatus::Unexplored => "unexplored".to_string(),
-                    nav_core::map::BranchStatus::Entered => "entered".to_string(),
-                    nav_core::map::BranchStatus::Rejected(r) => {
-                        format!("rejected: {}", reject_text(r))
-                    }
-                    nav_core::map::BranchStatus::DeadEnd(c) => {
-                        format!("dead end: {c:?}").to_lowercase()
-                    }
-                })
+                .map(|(s, (o, n))| branch_status_text(s, *o, *n))
                 .collect();
             crate::plot::junction_label(
                 u64::from(b.junction),

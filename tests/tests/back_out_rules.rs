@@ -291,3 +291,53 @@ fn flow_back_into_a_dead_branch_is_not_followed_near_the_junction() {
     );
     assert!(d.heading_map[1] > 0.99, "{:?}", d.heading_map);
 }
+
+/// The skin squeezed in a section narrower than the required standoff:
+/// with a felt junction behind it is a narrowing to back out of; with only
+/// a junction seen through the flow behind (a candidate that may be a
+/// bend) the robot holds as with none, and does not press on.
+#[test]
+fn a_squeeze_backs_out_to_a_felt_junction_and_holds_short_of_a_flow_seen_one() {
+    use nav_core::decide::{BackOutCause, WallObservation};
+    let cfg = NavConfig::for_robot(R).decide;
+    let pos = [1.2, -0.3, 0.0];
+    let radius = 0.5 * (cfg.robot_radius_m + cfg.required_standoff_m());
+    let mut w = WallObservation::EMPTY;
+    w.push_wall_point([1.2 + radius, -0.3, 0.0]);
+    w.push_wall_point([1.2 - radius, -0.3, 0.0]);
+    let section = Section::Circle {
+        centre_m: pos,
+        radius_m: radius,
+        centre_sigma_m: 0.001,
+        radius_sigma_m: 0.001,
+    };
+    let decide_with = |seen_by_flow: bool| {
+        let (mut m, jid, _) = corner_map(1.2);
+        m.junctions.get_mut(jid).unwrap().seen_by_flow = seen_by_flow;
+        let follow = DecideState {
+            phase: Phase::Follow,
+            in_junction: Some(jid),
+            last_heading_map: [0.0, -1.0, 0.0],
+            stall: StallWatch::NEW,
+        };
+        let mut p = perception(10.0, pos, [0.0, -1.0, 0.0]);
+        p.section = section;
+        p.wall = Some(&w);
+        decide(&m, &health(), &p, &follow, &cfg)
+    };
+    let felt = decide_with(false);
+    assert_eq!(
+        felt.record.dead_end.map(|d| d.cause),
+        Some(BackOutCause::NarrowingAhead),
+        "{:?}",
+        felt.record
+    );
+    let seen = decide_with(true);
+    assert_eq!(
+        seen.record.reason,
+        ReasonCode::HoldNoSafeStandoff,
+        "{:?}",
+        seen.record
+    );
+    assert_eq!(seen.speed_m_per_s, 0.0);
+}

@@ -85,7 +85,7 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
     // A junction seen only through the flow is a candidate (it may be a
     // bend): a squeeze or an unfelt stall is not reason enough to go back
     // to it (a bend's section fits squeeze too).
-    let felt_behind = junction_behind && !flow_seen_junction_behind(map, state);
+    let felt_behind = cx.felt_junction_behind;
     let squeezed_narrow = cx
         .squeezed_narrow_m
         .filter(|_| felt_behind)
@@ -156,30 +156,30 @@ pub(super) fn trigger<const S: usize, const W: usize, const JN: usize>(
     }
 }
 
-/// A junction is behind the robot to back out to: entering a branch, or
-/// in the region of a junction the map still holds.
+/// The junction the robot would back out to: the one whose branch it is
+/// entering, else the one it is in.
+pub(super) fn behind_id(state: &DecideState) -> Option<u16> {
+    match state.phase {
+        Phase::Enter { junction, .. } => Some(junction),
+        _ => state.in_junction,
+    }
+}
+
+/// Whether a junction is behind the robot to back out to (entering a
+/// branch, or in the region of a junction the map still holds), and if so
+/// whether it was felt: `None` with none behind, `Some(true)` for a felt
+/// one, `Some(false)` for one seen only through the flow (a candidate: it
+/// may be a bend).
 pub(super) fn junction_behind<const S: usize, const W: usize, const JN: usize>(
     map: &LocalMap<S, W, JN>,
     state: &DecideState,
-) -> bool {
-    matches!(state.phase, Phase::Enter { .. })
-        || state
-            .in_junction
-            .is_some_and(|id| map.junctions.get(id).is_some())
-}
-
-/// The junction behind (entered, or last in) was seen through the flow,
-/// not felt.
-fn flow_seen_junction_behind<const S: usize, const W: usize, const JN: usize>(
-    map: &LocalMap<S, W, JN>,
-    state: &DecideState,
-) -> bool {
-    let id = match state.phase {
-        Phase::Enter { junction, .. } => Some(junction),
-        _ => state.in_junction,
-    };
-    id.and_then(|id| map.junctions.get(id))
-        .is_some_and(|j| j.seen_by_flow)
+) -> Option<bool> {
+    let held = behind_id(state).and_then(|id| map.junctions.get(id));
+    if matches!(state.phase, Phase::Enter { .. }) || held.is_some() {
+        Some(!held.is_some_and(|j| j.seen_by_flow))
+    } else {
+        None
+    }
 }
 
 pub(super) fn flow_usable_or_weak(h: &HealthView) -> bool {
@@ -239,10 +239,7 @@ pub(super) fn start_back_out<const S: usize, const W: usize, const JN: usize>(
     health: &HealthView,
 ) -> Decision {
     let mut next = *state;
-    let jid = match state.phase {
-        Phase::Enter { junction, .. } => Some(junction),
-        _ => state.in_junction,
-    };
+    let jid = behind_id(state);
     let mut rec = rec;
     let note = rec.dead_end.get_or_insert(DeadEndRecord {
         cause,

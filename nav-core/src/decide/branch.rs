@@ -278,7 +278,6 @@ pub(super) fn dead_branch_detour<const S: usize, const W: usize, const JN: usize
     state: &DecideState,
     pos: [f64; 3],
     upstream: Option<[f64; 3]>,
-    p: &Perception<'_>,
     cfg: &DecideConfig,
 ) -> Option<[f64; 3]> {
     let up = upstream?;
@@ -300,7 +299,7 @@ pub(super) fn dead_branch_detour<const S: usize, const W: usize, const JN: usize
     if matches!(b.status, BranchStatus::DeadEnd(_)) {
         return None;
     }
-    Some(b.direction_map).filter(|_| p.position_m.is_some())
+    Some(b.direction_map)
 }
 
 /// Heading into a branch: toward a point `arrive_m` past the centre of its

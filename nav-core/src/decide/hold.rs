@@ -84,8 +84,10 @@ pub(super) fn must_hold(cx: &Step<'_, '_>, rec: DecisionRecord) -> ControlFlow<D
     // a remembered fit through a few close points, with nothing touching
     // now, would otherwise hold it for ever. With a way back (backing out
     // already, or a junction behind) it is not a hold but a narrowing the
-    // back-out leaves by (`back_out::trigger`).
-    let way_back = matches!(cx.state.phase, Phase::BackOut { .. }) || cx.junction_behind;
+    // back-out leaves by (`back_out::trigger`). A junction seen only
+    // through the flow is not such a way back (the back-out does not leave
+    // by a squeeze toward one), so the robot holds as with none.
+    let way_back = matches!(cx.state.phase, Phase::BackOut { .. }) || cx.felt_junction_behind;
     if cx.squeezed_narrow_m.is_some() && !way_back {
         return held(ReasonCode::HoldNoSafeStandoff);
     }

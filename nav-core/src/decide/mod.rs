@@ -131,6 +131,8 @@ pub(super) struct Step<'a, 'p> {
     stalled: Option<StallRecord>,
     /// A junction is behind to back out to ([`back_out::junction_behind`]).
     junction_behind: bool,
+    /// ... and it was felt, not only seen through the flow.
+    felt_junction_behind: bool,
     /// The radius of a credible section narrower than the required
     /// standoff while the skin is squeezed, m ([`hold::squeezed_narrow_m`]).
     squeezed_narrow_m: Option<f64>,
@@ -143,7 +145,7 @@ impl<'a, 'p> Step<'a, 'p> {
         state: &'a DecideState,
         cfg: &'a DecideConfig,
         stalled: Option<StallRecord>,
-        junction_behind: bool,
+        behind: Option<bool>,
     ) -> Self {
         let last = unit(state.last_heading_map).unwrap_or([1.0, 0.0, 0.0]);
         let upstream = p.flow.velocity_dir_map.and_then(|v| unit(scale(v, -1.0)));
@@ -186,7 +188,8 @@ impl<'a, 'p> Step<'a, 'p> {
             axis,
             along,
             stalled,
-            junction_behind,
+            junction_behind: behind.is_some(),
+            felt_junction_behind: behind == Some(true),
             squeezed_narrow_m,
         }
     }
@@ -287,7 +290,7 @@ fn dispatch<const S: usize, const W: usize, const JN: usize>(
     match branch::junction_step(map, cx, pos, &cl, rec) {
         ControlFlow::Break(d) => d,
         ControlFlow::Continue(next) => {
-            let detour = branch::dead_branch_detour(map, &next, pos, cx.upstream, p, cfg);
+            let detour = branch::dead_branch_detour(map, &next, pos, cx.upstream, cfg);
             follow::follow_step(cx, pos, &cl, rec, next, detour)
         }
     }
